@@ -1,0 +1,245 @@
+"""Stepping schemes: one compiled call advances every particle by many steps.
+
+The engine owns the loop over chunks, time, recording and sinks; a kernel here
+only advances the state. Particles are processed in tiles (``prange`` over
+tiles); within a tile the noise of a block of steps is generated into a small
+buffer first, then the steps are applied to the whole tile, so every inner
+loop runs over particles.
+
+Underdamped schemes are splittings given as data: a sequence of letters
+A (drift, x += h v), B (kick, v += h F/m) and O (exact Ornstein-Uhlenbeck
+velocity update) with their fractions of the step; "BAOAB" is
+B 1/2, A 1/2, O 1, A 1/2, B 1/2 [1]. Overdamped schemes are Euler-Maruyama
+and the Leimkuhler-Matthews scheme, which averages the noise of consecutive
+steps [1, 2].
+
+Status of a tile: ``status[tile] = (0, -1, -1)`` when it finished, or
+``(1, particle, step)`` for the first non-finite position (the step after which
+it appeared); that tile stops there.
+
+References
+----------
+.. [1] B. Leimkuhler, C. Matthews, "Rational construction of stochastic
+       numerical methods for molecular sampling", Appl. Math. Res. Express
+       2013(1), 34 (2013).
+.. [2] B. Leimkuhler, C. Matthews, M. V. Tretyakov, Proc. R. Soc. A 470,
+       20140120 (2014).
+"""
+import math
+import types
+
+import numpy as np
+from numba import njit, prange
+
+from .forces import builtin_forces, no_extra
+from .noise import fill_tile
+
+LETTER_A = 0
+LETTER_B = 1
+LETTER_O = 2
+#: Particles per tile.
+TILE = 64
+#: Steps of noise generated per block.
+BLOCK = 64
+
+extra_force = no_extra
+HAS_EXTRA = False
+
+
+@njit(inline="always", cache=True)
+def _forces(codes, params, X, t, F, Fx, energy):
+    builtin_forces(codes, params, X, t, F, energy, False)
+    if HAS_EXTRA:
+        for i in range(X.shape[0]):
+            extra_force(X[i], t, Fx)
+            for a in range(X.shape[1]):
+                F[i, a] += Fx[a]
+
+
+@njit(inline="always", cache=True)
+def _first_nonfinite(X):
+    for i in range(X.shape[0]):
+        for a in range(X.shape[1]):
+            if not math.isfinite(X[i, a]):
+                return i
+    return -1
+
+
+@njit(parallel=True, cache=True)
+def advance_overdamped(x, step0, n_steps, dt, kT, friction, averaged_noise,
+                       k0, k1, codes, params, every, out_x, status):
+    """Advance overdamped particles by ``n_steps`` steps in place.
+
+    x_{n+1} = x_n + (dt/gamma) F(x_n, t_n) + sqrt(2 kT dt/gamma) eta_n with
+    eta_n = xi_n (Euler-Maruyama) or (xi_n + xi_{n+1})/2 (Leimkuhler-Matthews,
+    ``averaged_noise``). Positions after steps that are multiples of
+    ``every`` are written to ``out_x[frame]``, frame 0 being the first such
+    step after ``step0`` (``step0`` itself a multiple of ``every``).
+    """
+    n_particles, d = x.shape
+    n_tiles = (n_particles + TILE - 1) // TILE
+    mobility_dt = np.empty(d)
+    amp = np.empty(d)
+    for a in range(d):
+        mobility_dt[a] = dt / friction[a]
+        amp[a] = math.sqrt(2.0 * kT * dt / friction[a])
+    extra = 1 if averaged_noise else 0
+    for tile in prange(n_tiles):
+        p0 = tile * TILE
+        n = min(TILE, n_particles - p0)
+        X = x[p0:p0 + n].copy()
+        F = np.empty((n, d))
+        Fx = np.empty(d)
+        energy = np.empty(n)
+        buf = np.empty((BLOCK + 1, n, d))
+        status[tile, 0] = 0
+        status[tile, 1] = -1
+        status[tile, 2] = -1
+        done = 0
+        while done < n_steps:
+            nb = min(BLOCK, n_steps - done)
+            first = step0 + done
+            fill_tile(k0, k1, p0, n, d, first, nb + extra, buf)
+            failed = False
+            for s in range(nb):
+                step = first + s
+                _forces(codes, params, X, step * dt, F, Fx, energy)
+                checksum = 0.0
+                if averaged_noise:
+                    for i in range(n):
+                        for a in range(d):
+                            X[i, a] += (mobility_dt[a] * F[i, a]
+                                        + amp[a] * 0.5 * (buf[s, i, a] + buf[s + 1, i, a]))
+                            checksum += X[i, a]
+                else:
+                    for i in range(n):
+                        for a in range(d):
+                            X[i, a] += mobility_dt[a] * F[i, a] + amp[a] * buf[s, i, a]
+                            checksum += X[i, a]
+                if not math.isfinite(checksum):
+                    status[tile, 0] = 1
+                    status[tile, 1] = p0 + _first_nonfinite(X)
+                    status[tile, 2] = step + 1
+                    failed = True
+                    break
+                if (step + 1) % every == 0:
+                    frame = (step + 1 - step0) // every - 1
+                    out_x[frame, p0:p0 + n, :] = X
+            if failed:
+                break
+            done += nb
+        x[p0:p0 + n] = X
+
+
+@njit(parallel=True, cache=True)
+def advance_underdamped(x, v, step0, n_steps, dt, kT, mass, friction,
+                        letters, fractions, k0, k1, codes, params, every,
+                        out_x, out_v, record_v, status):
+    """Advance underdamped particles by a splitting scheme, in place.
+
+    ``letters`` (int64) and ``fractions`` (float64) spell the splitting, e.g.
+    BAOAB = (B, A, O, A, B) with (0.5, 0.5, 1, 0.5, 0.5). The O letter is the
+    exact update v <- c v + sqrt((1 - c^2) kT/m) xi with c = exp(-gamma h/m).
+    Recorded velocities are those at the end of the full step.
+    """
+    n_particles, d = x.shape
+    n_letters = letters.shape[0]
+    n_o = 0
+    for j in range(n_letters):
+        if letters[j] == LETTER_O:
+            n_o += 1
+    n_comp = d * n_o
+    ou_c = np.empty((n_letters, d))
+    ou_amp = np.empty((n_letters, d))
+    for j in range(n_letters):
+        for a in range(d):
+            c = math.exp(-friction[a] * fractions[j] * dt / mass)
+            ou_c[j, a] = c
+            ou_amp[j, a] = math.sqrt((1.0 - c * c) * kT / mass)
+    n_tiles = (n_particles + TILE - 1) // TILE
+    for tile in prange(n_tiles):
+        p0 = tile * TILE
+        n = min(TILE, n_particles - p0)
+        X = x[p0:p0 + n].copy()
+        V = v[p0:p0 + n].copy()
+        F = np.empty((n, d))
+        Fx = np.empty(d)
+        energy = np.empty(n)
+        buf = np.empty((BLOCK, n, max(n_comp, 1)))
+        status[tile, 0] = 0
+        status[tile, 1] = -1
+        status[tile, 2] = -1
+        force_valid = False
+        done = 0
+        while done < n_steps:
+            nb = min(BLOCK, n_steps - done)
+            first = step0 + done
+            fill_tile(k0, k1, p0, n, n_comp, first, nb, buf)
+            failed = False
+            for s in range(nb):
+                step = first + s
+                elapsed = 0.0
+                o_index = 0
+                for j in range(n_letters):
+                    h = fractions[j] * dt
+                    letter = letters[j]
+                    if letter == LETTER_A:
+                        for i in range(n):
+                            for a in range(d):
+                                X[i, a] += h * V[i, a]
+                        elapsed += fractions[j]
+                        force_valid = False
+                    elif letter == LETTER_B:
+                        if not force_valid:
+                            _forces(codes, params, X, (step + elapsed) * dt, F, Fx, energy)
+                            force_valid = True
+                        for i in range(n):
+                            for a in range(d):
+                                V[i, a] += h * F[i, a] / mass
+                    else:
+                        base = o_index * d
+                        for i in range(n):
+                            for a in range(d):
+                                V[i, a] = (ou_c[j, a] * V[i, a]
+                                           + ou_amp[j, a] * buf[s, i, base + a])
+                        o_index += 1
+                checksum = 0.0
+                for i in range(n):
+                    for a in range(d):
+                        checksum += X[i, a] + V[i, a]
+                if not math.isfinite(checksum):
+                    bad = _first_nonfinite(X)
+                    status[tile, 0] = 1
+                    status[tile, 1] = p0 + (bad if bad >= 0 else _first_nonfinite(V))
+                    status[tile, 2] = step + 1
+                    failed = True
+                    break
+                if (step + 1) % every == 0:
+                    frame = (step + 1 - step0) // every - 1
+                    out_x[frame, p0:p0 + n, :] = X
+                    if record_v:
+                        out_v[frame, p0:p0 + n, :] = V
+            if failed:
+                break
+            done += nb
+        x[p0:p0 + n] = X
+        v[p0:p0 + n] = V
+
+
+def with_user_term(kernel, user_force):
+    """A copy of ``kernel`` (a numba dispatcher of this module) calling ``user_force``.
+
+    The copy has the same code with the module globals ``extra_force`` and
+    ``HAS_EXTRA`` rebound, so built-in-only runs keep the cached kernels while
+    runs with a user term compile once per term. Not cached on disk.
+    """
+    glb = dict(kernel.py_func.__globals__)
+    glb["extra_force"] = user_force
+    glb["HAS_EXTRA"] = True
+    helpers = {}
+    for name in ("_forces",):
+        f = glb[name].py_func
+        helpers[name] = njit(inline="always")(types.FunctionType(f.__code__, glb, name))
+    glb.update(helpers)
+    py = kernel.py_func
+    return njit(parallel=True)(types.FunctionType(py.__code__, glb, py.__name__))
