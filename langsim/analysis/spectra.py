@@ -1,0 +1,310 @@
+"""Blocked periodograms and maximum-likelihood fits of trap and oscillator spectra.
+
+Normalisation (two-sided, per Hz) as in [1]: for a segment of N samples dt
+apart, x^_k = dt sum_j x_j exp(2 pi i k j/N) and P_k = |x^_k|^2/(N dt), whose
+expectation is the two-sided PSD. Averaging the periodograms of n
+independent segments (and particles) gives values that are gamma
+distributed with shape n and mean E[P_k] (exponential for n = 1) [1, 2].
+The fits maximise that likelihood, -log L = sum_k n [ln M_k + P_k/M_k] + const;
+parameter errors come from the expected Fisher information
+I = sum_k n (d ln M_k)(d ln M_k)^T.
+
+References
+----------
+.. [1] K. Berg-Sorensen, H. Flyvbjerg, "Power spectrum analysis for optical
+       tweezers", Rev. Sci. Instrum. 75, 594 (2004).
+.. [2] S. F. Norrelykke, H. Flyvbjerg, Phys. Rev. E 83, 041103 (2011).
+"""
+import math
+
+import numpy as np
+from scipy import optimize
+
+from .. import theory
+from .stats import Estimator, FrameSource
+
+__all__ = ["blocked_periodogram", "fit_psd_model", "LorentzianFit", "OscillatorFit", "MODELS"]
+
+
+def blocked_periodogram(positions, dt, segment_length, start=0, axis=None):
+    """Periodogram averaged over non-overlapping segments and particles.
+
+    Parameters
+    ----------
+    positions : (frames,), (frames, particles) or (frames, particles, dims) with ``axis``
+    dt : float, s, time between frames
+    segment_length : int, samples per segment (>= 8)
+
+    Returns
+    -------
+    f : (N//2,) Hz, the positive frequencies k/(N dt), k = 1..N//2
+    P : (N//2,) m^2/Hz, mean two-sided periodogram
+    count : int, number of periodograms averaged (segments x particles)
+    """
+    src = FrameSource(positions, axis=axis)
+    if src.vector and src.n_dims > 1:
+        raise ValueError(f"axis must be given for positions with {src.n_dims} dims")
+    start = src.check_start(start)
+    dt = float(dt)
+    if not dt > 0:
+        raise ValueError(f"dt must be > 0 (s), got {dt!r}")
+    N = int(segment_length)
+    n_seg = (src.n_frames - start) // N if N >= 8 else 0
+    if N != segment_length or n_seg < 1:
+        raise ValueError(f"segment_length must be an integer in [8, {src.n_frames - start}], "
+                         f"got {segment_length!r}")
+    acc = np.zeros(N // 2)
+    stop = start + n_seg * N
+    for _, blk in src.chunks(start, stop, chunk=N * max(1, (1 << 20) // (N * src.n_particles))):
+        x = blk[:, :, 0]
+        m = x.shape[0] // N
+        seg = x[:m * N].reshape(m, N, -1)
+        F = np.fft.rfft(seg, axis=1)[:, 1:N // 2 + 1]
+        acc += (np.abs(F) ** 2).sum(axis=(0, 2))
+    count = n_seg * src.n_particles
+    P = acc * dt / N / count
+    f = np.arange(1, N // 2 + 1) / (N * dt)
+    return f, P, count
+
+
+def _oscillator_unit(f, f0, Q, dt, n_alias):
+    """Two-sided oscillator PSD with unit variance, alias-summed over 2 n_alias + 1 images."""
+    w0 = 2.0 * math.pi * f0
+    out = np.zeros_like(f)
+    images = [0] if dt is None else range(-n_alias, n_alias + 1)
+    for k in images:
+        g = f if dt is None else f + k / dt
+        r = (2.0 * math.pi * g / w0) ** 2
+        out += (2.0 / (w0 * Q)) / ((1.0 - r) ** 2 + r / (Q * Q))
+    return out
+
+
+#: name -> (parameter names after the amplitude, unit-amplitude shape function)
+MODELS = {
+    "lorentzian": (("fc",), lambda f, p, dt, na: theory.lorentzian_psd(f, p[0], 1.0)),
+    "aliased": (("fc",), lambda f, p, dt, na: theory.aliased_lorentzian_psd(f, p[0], 1.0, dt)),
+    "blurred": (("fc",), lambda f, p, dt, na: theory.blurred_aliased_lorentzian_psd(f, p[0], 1.0, dt)),
+    "oscillator": (("f0", "Q"), lambda f, p, dt, na: _oscillator_unit(f, p[0], p[1], None, na)),
+    "aliased-oscillator": (("f0", "Q"), lambda f, p, dt, na: _oscillator_unit(f, p[0], p[1], dt, na)),
+}
+
+
+def _nll_profile(logp, f, P, n, shape):
+    h = shape(np.exp(logp))
+    if not np.all(np.isfinite(h)) or np.any(h <= 0):
+        return np.inf, np.nan
+    amp = np.sum(n * P / h) / np.sum(n)
+    return float(np.sum(n * (np.log(amp * h) + 1.0))), amp
+
+
+def fit_psd_model(f, P, count, model, dt=None, n_alias=50, start=None):
+    """Maximum-likelihood fit of a PSD model to averaged periodogram values.
+
+    Parameters
+    ----------
+    f, P : arrays, Hz and m^2/Hz (two-sided)
+    count : int or array, gamma shape of each value (periodograms averaged)
+    model : one of :data:`MODELS`. "lorentzian"/"aliased"/"blurred" have
+        amplitude D (m^2/s) and corner frequency fc (Hz); "oscillator" and
+        "aliased-oscillator" have amplitude var (m^2), resonance f0 (Hz), Q.
+    dt : float, s, sampling interval (needed by aliased models)
+    start : initial shape parameters (optional; a grid search is used otherwise)
+
+    Returns
+    -------
+    dict: ``params`` (amplitude first), ``errors``, ``covariance`` (of the
+    parameters, from the Fisher information), ``names``, ``nll``.
+    """
+    if model not in MODELS:
+        raise ValueError(f"model must be one of {sorted(MODELS)}, got {model!r}")
+    f = np.asarray(f, dtype=float)
+    P = np.asarray(P, dtype=float)
+    n = np.broadcast_to(np.asarray(count, dtype=float), f.shape)
+    if f.shape != P.shape or f.ndim != 1 or f.size < 4:
+        raise ValueError(f"f and P must be 1D of equal length >= 4, got {f.shape} and {P.shape}")
+    if np.any(P <= 0) or np.any(f <= 0) or np.any(n <= 0):
+        raise ValueError("f, P and count must be > 0 (exclude the f = 0 bin)")
+    names, unit = MODELS[model]
+    if model in ("aliased", "blurred", "aliased-oscillator") and not (dt and dt > 0):
+        raise ValueError(f"dt (s) is required by model {model!r}, got {dt!r}")
+    shape = lambda p: unit(f, p, dt, n_alias)  # noqa: E731
+    obj = lambda lp: _nll_profile(lp, f, P, n, shape)[0]  # noqa: E731
+    if start is None:
+        fgrid = np.geomspace(f[0] / 30.0, f[-1] * 30.0, 61)
+        if len(names) == 1:
+            cands = [(math.log(v),) for v in fgrid]
+        else:
+            cands = [(math.log(v), math.log(q)) for v in np.geomspace(f[0], f[-1], 41)
+                     for q in np.geomspace(0.05, 3e3, 25)]
+        x0 = np.array(min(cands, key=lambda c: obj(np.array(c))))
+    else:
+        x0 = np.log(np.asarray(start, dtype=float))
+    res = optimize.minimize(obj, x0, method="Nelder-Mead",
+                            options={"xatol": 1e-10, "fatol": 1e-12, "maxiter": 4000})
+    logp = res.x
+    nll, amp = _nll_profile(logp, f, P, n, shape)
+    theta = np.concatenate([[math.log(amp)], logp])
+
+    def logm(th):
+        return th[0] + np.log(shape(np.exp(th[1:])))
+
+    grads = np.empty((theta.size, f.size))
+    for i in range(theta.size):
+        h = 1e-5
+        tp, tm = theta.copy(), theta.copy()
+        tp[i] += h
+        tm[i] -= h
+        grads[i] = (logm(tp) - logm(tm)) / (2 * h)
+    fisher = (grads * n) @ grads.T
+    cov_log = np.linalg.inv(fisher)
+    params = np.exp(theta)
+    cov = cov_log * np.outer(params, params)
+    return {"names": ("D" if len(names) == 1 else "variance",) + names, "params": params,
+            "errors": np.sqrt(np.diag(cov)), "covariance": cov, "nll": nll}
+
+
+def _positive_opt(name, v, allow_none=True):
+    if v is None and allow_none:
+        return None
+    if not (isinstance(v, (int, float)) and math.isfinite(v) and v > 0):
+        raise ValueError(f"{name} must be a positive number, got {v!r}")
+    return float(v)
+
+
+def _default_segment(n):
+    """Largest power of two <= n/16 (at most 2^15, at least 8)."""
+    return int(max(8, min(1 << 15, 1 << int(math.floor(math.log2(max(n // 16, 8)))))))
+
+
+class _SpectrumFit(Estimator):
+    def _periodogram(self, positions):
+        _positive_opt("dt", self.dt, allow_none=False)
+        src = FrameSource(positions, axis=self.axis)
+        N = self.segment_length or _default_segment(src.n_frames - int(self.start))
+        f, P, count = blocked_periodogram(positions, self.dt, N, self.start, self.axis)
+        lo = self.f_min if self.f_min is not None else 0.0
+        hi = self.f_max if self.f_max is not None else np.inf
+        keep = (f >= lo) & (f <= hi)
+        if keep.sum() < 4:
+            raise ValueError(f"fewer than 4 frequencies in [f_min, f_max] = [{lo!r}, {hi!r}] Hz")
+        self.frequencies_, self.psd_, self.psd_count_ = f[keep], P[keep], count
+        self.segment_length_ = N
+
+
+class LorentzianFit(_SpectrumFit):
+    """Corner frequency and diffusion coefficient of an overdamped trap from its PSD.
+
+    Parameters
+    ----------
+    dt : float, s, time between frames
+    model : "aliased" (instantaneous samples, [1]), "blurred" (full-frame
+        exposure) or "lorentzian" (no aliasing)
+    segment_length : int or None (default: largest power of two <= frames/16, <= 2^15)
+    f_min, f_max : float or None, Hz, fitted band
+    kT : float or None, J; friction : float or None, kg/s. With friction,
+        stiffness_ = 2 pi gamma fc; otherwise with kT, friction_ = kT/D and
+        stiffness_ = 2 pi fc kT/D.
+    axis, start : as in :class:`~langsim.analysis.stats.FrameSource`
+
+    Attributes (after fit)
+    ----------------------
+    corner_frequency_, corner_frequency_err_ (Hz), diffusion_, diffusion_err_
+    (m^2/s), covariance_ (of (D, fc)), stiffness_, stiffness_err_, friction_,
+    friction_err_ (when computable), frequencies_, psd_, psd_count_.
+    """
+
+    def __init__(self, dt, model="aliased", segment_length=None, f_min=None, f_max=None,
+                 kT=None, friction=None, axis=None, start=0):
+        self.dt = dt
+        self.model = model
+        self.segment_length = segment_length
+        self.f_min = f_min
+        self.f_max = f_max
+        self.kT = kT
+        self.friction = friction
+        self.axis = axis
+        self.start = start
+
+    def fit(self, positions):
+        if self.model not in ("aliased", "blurred", "lorentzian"):
+            raise ValueError(f"model must be 'aliased', 'blurred' or 'lorentzian', got {self.model!r}")
+        kT = _positive_opt("kT", self.kT)
+        gamma = _positive_opt("friction", self.friction)
+        self._periodogram(positions)
+        return self.fit_spectrum(self.frequencies_, self.psd_, self.psd_count_, kT, gamma)
+
+    def fit_spectrum(self, f, P, count, kT=None, friction=None):
+        """Fit given periodogram values (used by :meth:`fit`; also for expected spectra)."""
+        r = fit_psd_model(f, P, count, self.model, self.dt)
+        (D, fc), cov = r["params"], r["covariance"]
+        self.diffusion_, self.corner_frequency_ = D, fc
+        self.diffusion_err_, self.corner_frequency_err_ = r["errors"]
+        self.covariance_ = cov
+        if friction is not None:
+            self.stiffness_ = 2.0 * math.pi * friction * fc
+            self.stiffness_err_ = 2.0 * math.pi * friction * self.corner_frequency_err_
+        elif kT is not None:
+            self.friction_ = kT / D
+            self.friction_err_ = self.friction_ * self.diffusion_err_ / D
+            self.stiffness_ = 2.0 * math.pi * fc * kT / D
+            rel = cov[1, 1] / fc**2 + cov[0, 0] / D**2 - 2.0 * cov[0, 1] / (fc * D)
+            self.stiffness_err_ = self.stiffness_ * math.sqrt(max(rel, 0.0))
+        return self
+
+    def predict(self, f):
+        """Fitted two-sided PSD at frequencies f (Hz), m^2/Hz."""
+        self._require_fitted("corner_frequency_")
+        unit = MODELS[self.model][1]
+        return self.diffusion_ * unit(np.asarray(f, dtype=float), (self.corner_frequency_,), self.dt, 0)
+
+
+class OscillatorFit(_SpectrumFit):
+    """Resonance frequency, quality factor and variance of a damped oscillator from its PSD.
+
+    Parameters
+    ----------
+    dt : float, s; aliased : bool (alias-sum the model over ``n_alias`` images
+    each side, for instantaneous samples); segment_length, f_min, f_max,
+    axis, start as in :class:`LorentzianFit`; kT : float or None, J.
+
+    Attributes (after fit)
+    ----------------------
+    resonance_frequency_, quality_factor_, variance_ and their ``*_err_``;
+    with kT: stiffness_ = kT/variance_, mass_ = k/w0^2, friction_ = m w0/Q
+    (and ``stiffness_err_``).
+    """
+
+    def __init__(self, dt, aliased=True, segment_length=None, f_min=None, f_max=None, kT=None,
+                 n_alias=50, axis=None, start=0):
+        self.dt = dt
+        self.aliased = aliased
+        self.segment_length = segment_length
+        self.f_min = f_min
+        self.f_max = f_max
+        self.kT = kT
+        self.n_alias = n_alias
+        self.axis = axis
+        self.start = start
+
+    def fit(self, positions):
+        kT = _positive_opt("kT", self.kT)
+        self._periodogram(positions)
+        model = "aliased-oscillator" if self.aliased else "oscillator"
+        r = fit_psd_model(self.frequencies_, self.psd_, self.psd_count_, model, self.dt, self.n_alias)
+        self.variance_, self.resonance_frequency_, self.quality_factor_ = r["params"]
+        self.variance_err_, self.resonance_frequency_err_, self.quality_factor_err_ = r["errors"]
+        self.covariance_ = r["covariance"]
+        if kT is not None:
+            w0 = 2.0 * math.pi * self.resonance_frequency_
+            self.stiffness_ = kT / self.variance_
+            self.stiffness_err_ = self.stiffness_ * self.variance_err_ / self.variance_
+            self.mass_ = self.stiffness_ / w0**2
+            self.friction_ = self.mass_ * w0 / self.quality_factor_
+        return self
+
+    def predict(self, f):
+        """Fitted two-sided PSD at frequencies f (Hz), m^2/Hz."""
+        self._require_fitted("resonance_frequency_")
+        dt = self.dt if self.aliased else None
+        return self.variance_ * _oscillator_unit(np.asarray(f, dtype=float), self.resonance_frequency_,
+                                                 self.quality_factor_, dt, self.n_alias)
