@@ -1,0 +1,561 @@
+"""Check a trajectory against the exact predictions for its own configuration.
+
+:func:`check` reads ``traj.config`` (the resolved configuration), decides
+which checks apply, discards an initial transient of ``transient_factor``
+times the slowest relaxation time of the run (less any burn-in already done),
+and returns a :class:`CheckReport`. Pass/fail rows compare with predictions
+that are exact for the scheme at its finite time step (or exact for the
+continuous dynamics where the scheme's bias is estimated to be below the
+statistical resolution); asymptotic formulas (Kramers) are reported for
+information and never fail a run. A row fails when |z| > ``z_threshold``
+(default 4.5 standard errors) or, for the histogram test, when p < 1e-5.
+
+Sources of the predictions are named in each row; see :mod:`langsim.theory`.
+"""
+import json
+import math
+import os
+from dataclasses import asdict, dataclass, field
+
+import numpy as np
+from scipy import optimize
+
+from . import theory
+from .analysis import (BoltzmannTest, EscapeRate, InsufficientDataError, LorentzianFit, axis_moments,
+                       mean_msd, msd_at_lags)
+from .analysis.stats import FrameSource
+from .units import k_B
+
+__all__ = ["Row", "CheckReport", "check", "write_plots"]
+
+AXES = "xyz"
+#: p-value below which the histogram test fails (about 4.4 standard errors)
+P_FAIL = 1e-5
+
+SRC_EQUI = "equipartition; exact finite-step variance of the scheme (Leimkuhler & Matthews 2013, AMRX; derived)"
+SRC_OU = "Berg-Sorensen & Flyvbjerg 2004, Rev. Sci. Instrum. 75, 594"
+SRC_MSD = "Einstein 1905, Ann. Phys. 17, 549; finite-step form derived"
+SRC_OF = "Uhlenbeck & Ornstein 1930, Phys. Rev. 36, 823; finite-step BAOAB form derived"
+SRC_HTB = "Hanggi, Talkner & Borkovec 1990, Rev. Mod. Phys. 62, 251"
+SRC_MM = "Mel'nikov & Meshkov 1986, J. Chem. Phys. 85, 1018; Mel'nikov 1991, Phys. Rep. 209, 1"
+
+
+@dataclass
+class Row:
+    """One line of a report. ``status`` is "pass", "fail", "info" or "skip"."""
+    quantity: str
+    measured: float = None
+    error: float = None
+    predicted: float = None
+    z: float = None
+    status: str = "info"
+    formula: str = ""
+    source: str = ""
+    unit: str = ""
+    note: str = ""
+
+
+@dataclass
+class CheckReport:
+    """Rows of a check plus what was discarded; ``passed`` is True when no row failed."""
+    rows: list = field(default_factory=list)
+    start_frame: int = 0
+    discarded_time: float = 0.0
+    notes: list = field(default_factory=list)
+
+    @property
+    def passed(self):
+        return not any(r.status == "fail" for r in self.rows)
+
+    def to_dict(self):
+        def clean(v):
+            if isinstance(v, (np.floating, np.integer)):
+                v = v.item()
+            if isinstance(v, float) and not math.isfinite(v):
+                return None
+            return v
+        return {"passed": self.passed, "start_frame": self.start_frame,
+                "discarded_time": self.discarded_time, "notes": list(self.notes),
+                "rows": [{k: clean(v) for k, v in asdict(r).items()} for r in self.rows]}
+
+    def to_json(self, indent=2):
+        return json.dumps(self.to_dict(), indent=indent)
+
+    def format_table(self):
+        """Plain-text table: quantity, measured +- error, predicted, z, status, formula/source."""
+        def num(v):
+            return "" if v is None or (isinstance(v, float) and not math.isfinite(v)) else f"{v:.6g}"
+        lines = [f"{'quantity':<34} {'measured':>26} {'predicted':>13} {'z':>7}  status  formula [source]"]
+        for r in self.rows:
+            meas = num(r.measured) + (f" +- {r.error:.2g}" if r.error is not None else "")
+            z = f"{r.z:+.2f}" if r.z is not None else ""
+            extra = f"{r.formula} [{r.source}]" + (f"; {r.note}" if r.note else "")
+            lines.append(f"{r.quantity:<34} {meas:>26} {num(r.predicted):>13} {z:>7}  "
+                         f"{r.status:<6}  {extra}")
+        lines.append(f"discarded {self.start_frame} frames ({self.discarded_time:.4g} s) as transient")
+        lines.extend("note: " + n for n in self.notes)
+        lines.append("PASSED" if self.passed else "FAILED: " + ", ".join(
+            r.quantity for r in self.rows if r.status == "fail"))
+        return "\n".join(lines)
+
+
+def _get(cfg, *keys, default=KeyError):
+    cur = cfg
+    for k in keys:
+        if not isinstance(cur, dict) or k not in cur:
+            if default is KeyError:
+                raise KeyError(f"traj.config lacks {'.'.join(keys)!r}")
+            return default
+        cur = cur[k]
+    return cur
+
+
+def _vec(v, d, name):
+    a = np.zeros(d) if v is None else np.broadcast_to(np.asarray(v, dtype=float), (d,)).copy()
+    if not np.all(np.isfinite(a)):
+        raise ValueError(f"{name} must hold {d} finite numbers, got {v!r}")
+    return a
+
+
+class _Setup:
+    """What the configuration implies, axis by axis."""
+
+    def __init__(self, cfg):
+        if not isinstance(cfg, dict):
+            raise TypeError(f"traj.config must be the resolved configuration dict, got {type(cfg).__name__}")
+        self.d = d = int(_get(cfg, "particles", "dimensions"))
+        if d not in (1, 2, 3):
+            raise ValueError(f"particles.dimensions must be 1, 2 or 3, got {d!r}")
+        T = float(_get(cfg, "medium", "temperature"))
+        if not T > 0:
+            raise ValueError(f"medium.temperature must be > 0 K, got {T!r}")
+        self.kT = k_B * T
+        self.friction = _vec(_get(cfg, "particles", "friction"), d, "particles.friction")
+        if np.any(self.friction <= 0):
+            raise ValueError(f"particles.friction must be > 0, got {self.friction.tolist()}")
+        self.mass = _get(cfg, "particles", "mass", default=None)
+        self.regime = _get(cfg, "dynamics", "regime")
+        self.scheme = _get(cfg, "dynamics", "scheme")
+        self.dt = float(_get(cfg, "dynamics", "dt"))
+        self.every = int(_get(cfg, "output", "every", default=1))
+        if not self.dt > 0 or self.every < 1:
+            raise ValueError(f"dynamics.dt must be > 0 and output.every >= 1, got {self.dt!r}, {self.every!r}")
+        if self.regime == "underdamped" and not (self.mass and self.mass > 0):
+            raise ValueError(f"particles.mass must be > 0 kg for underdamped dynamics, got {self.mass!r}")
+        self.frame_dt = self.dt * self.every
+        self.burn_in = float(_get(cfg, "particles", "burn_in", default=0.0) or 0.0)
+        self.kappa = np.zeros(d)
+        kc = np.zeros(d)
+        self.force = np.zeros(d)
+        self.nonlinear = [None] * d
+        self.moving = np.zeros(d, bool)
+        self.well = None
+        self.coupled = False
+        self.on_axis = []  # extra 1D terms along the double-well axis
+        for term in _get(cfg, "potential", default=[]) or []:
+            kind = term.get("type")
+            if kind == "harmonic":
+                k = _vec(term.get("stiffness"), d, "harmonic.stiffness")
+                c = _vec(term.get("center"), d, "harmonic.center")
+                self.kappa += k
+                kc += k * c
+                mv = (_vec(term.get("velocity"), d, "velocity") != 0) | (_vec(term.get("amplitude"), d, "amplitude") != 0)
+                self.moving |= mv & (k != 0)
+                self.on_axis.append(("harmonic", k, c))
+            elif kind == "double-well":
+                a = int(term.get("axis", 0))
+                k = _vec(term.get("stiffness"), d, "double-well.stiffness")
+                c = _vec(term.get("center"), d, "double-well.center")
+                k[a] = 0.0
+                self.kappa += k
+                kc += k * c
+                self.nonlinear[a] = "double-well"
+                self.well = None if self.well is not None else (a, float(term["barrier"]),
+                                                                 float(term["separation"]), c[a])
+            elif kind == "periodic":
+                a = int(term.get("axis", 0))
+                self.nonlinear[a] = "periodic"
+                self.on_axis.append(("periodic", a, term))
+            elif kind == "constant-force":
+                self.force += _vec(term.get("force"), d, "constant-force.force")
+            elif kind in ("gaussian-well", "expression"):
+                self.coupled = True
+                self.nonlinear = [kind] * d
+            else:
+                raise ValueError(f"unknown potential type {kind!r} in traj.config['potential']")
+        with np.errstate(invalid="ignore", divide="ignore"):
+            self.center = np.where(self.kappa > 0, (kc + self.force) / self.kappa, 0.0)
+
+    def axis_kind(self, a):
+        if self.nonlinear[a]:
+            return self.nonlinear[a]
+        if self.kappa[a] > 0:
+            return "moving-trap" if self.moving[a] else "harmonic"
+        return "drift" if self.force[a] != 0 else "free"
+
+    def relaxation_time(self, a):
+        kind = self.axis_kind(a)
+        stiff = self.kappa[a] if kind in ("harmonic", "moving-trap") else 0.0
+        if kind == "double-well":
+            stiff = theory.double_well_curvatures(self.well[1], self.well[2])[0]
+        elif kind not in ("harmonic", "moving-trap", "free", "drift"):
+            return 0.0
+        mass = self.mass if self.regime == "underdamped" else None
+        rate = theory.slowest_relaxation_rate(mass, self.friction[a], stiff)
+        return 1.0 / rate if rate > 0 else 0.0
+
+    def axis_potential(self):
+        """1D potential along the double-well axis (J), or None when not separable."""
+        if self.well is None or self.coupled:
+            return None
+        a, dU, L, c = self.well
+        dw = theory.quartic_double_well(dU, L, c)
+        terms = []
+        for t in self.on_axis:
+            if t[0] == "harmonic" and t[1][a] != 0:
+                terms.append(("h", t[1][a], t[2][a]))
+            elif t[0] == "periodic" and t[1] == a:
+                p = t[2]
+                terms.append(("p", float(p["barrier"]), float(p["period"]), float(p.get("tilt", 0.0)),
+                              _vec(p.get("center"), self.d, "periodic.center")[a]))
+        F = self.force[a]
+
+        def U(x):
+            x = np.asarray(x, dtype=float)
+            u = dw(x) - F * x
+            for t in terms:
+                if t[0] == "h":
+                    u = u + 0.5 * t[1] * (x - t[2]) ** 2
+                else:
+                    s = x - t[4]
+                    u = u + 0.5 * t[1] * (1.0 - np.cos(2.0 * math.pi * s / t[2])) - t[3] * s
+            return u
+        return U
+
+
+def _z(measured, error, predicted):
+    if error is None or not error > 0 or not math.isfinite(error):
+        return None
+    return (measured - predicted) / error
+
+
+def _row(quantity, measured, error, predicted, formula, source, unit="", z_threshold=4.5, info=False, note=""):
+    z = _z(measured, error, predicted)
+    status = "info" if info else ("pass" if z is not None and abs(z) <= z_threshold else "fail")
+    return Row(quantity, float(measured), None if error is None else float(error), float(predicted),
+               None if z is None else float(z), status, formula, source, unit, note)
+
+
+def _scheme_bias(setup, curvature, a):
+    """Rough relative bias of configurational statistics from the finite step (for gating)."""
+    r = curvature * setup.dt / setup.friction[a]
+    if setup.scheme == "euler-maruyama":
+        return r / 2.0
+    if setup.scheme == "leimkuhler-matthews":
+        return r * r
+    return curvature / setup.mass * setup.dt ** 2 / 4.0  # baoab
+
+
+def check(traj, z_threshold=4.5, min_events=20, transient_factor=10.0):
+    """Check a trajectory against the predictions for its configuration.
+
+    Parameters
+    ----------
+    traj : object with ``time`` (frames,) s, ``positions`` (frames, particles,
+        dims) m (array or lazily sliced), ``velocities`` (same shape or None)
+        and ``config`` (resolved configuration dict).
+    z_threshold : float, |z| above which a row fails.
+    min_events : int, completed transitions needed for the escape-rate check.
+    transient_factor : float, transient discarded = this times the slowest
+        relaxation time, less the configured burn-in (at most a quarter of the run).
+
+    Returns
+    -------
+    CheckReport
+    """
+    for attr in ("time", "positions", "config"):
+        if not hasattr(traj, attr):
+            raise TypeError(f"traj must have .time, .positions, .velocities and .config; missing {attr!r}")
+    s = _Setup(traj.config)
+    src = FrameSource(traj.positions, name="traj.positions")
+    if len(src.shape) != 3 or src.shape[2] != s.d:
+        raise ValueError(f"traj.positions must have shape (frames, particles, {s.d}), got {src.shape}")
+    report = CheckReport()
+    report._plot_data = {}
+    time = np.asarray(traj.time, dtype=float)
+    if time.shape != (src.n_frames,):
+        raise ValueError(f"traj.time must have shape ({src.n_frames},), got {time.shape}")
+    spacing = float(np.median(np.diff(time)))
+    if not math.isclose(spacing, s.frame_dt, rel_tol=1e-6):
+        report.rows.append(Row("frame interval", spacing, None, s.frame_dt, None, "fail",
+                               "time step of traj.time = dynamics.dt * output.every", "configuration", "s"))
+    # ---------------------------------------------------------------- transient
+    tau = max(s.relaxation_time(a) for a in range(s.d))
+    want = max(0.0, transient_factor * tau - s.burn_in)
+    start = int(math.ceil(want / s.frame_dt))
+    cap = src.n_frames // 4
+    if start > cap:
+        report.notes.append(f"transient of {want:.3g} s ({start} frames) exceeds a quarter of the run; "
+                            f"only {cap} frames discarded")
+        start = cap
+    report.start_frame, report.discarded_time = start, start * s.frame_dt
+    report.notes.append(f"transient: {transient_factor:g} x slowest relaxation time {tau:.3g} s "
+                        f"minus burn-in {s.burn_in:.3g} s")
+    kinds = [s.axis_kind(a) for a in range(s.d)]
+    for a, k in enumerate(kinds):
+        if k == "moving-trap":
+            report.notes.append(f"axis {AXES[a]}: moving trap, equilibrium checks skipped")
+        elif k == "drift":
+            report.notes.append(f"axis {AXES[a]}: constant force without trap, MSD check skipped")
+        elif k in ("periodic", "gaussian-well", "expression"):
+            report.notes.append(f"axis {AXES[a]}: {k} potential, no exact prediction; skipped")
+    under = s.regime == "underdamped"
+    if under and s.scheme != "baoab":
+        report.notes.append(f"underdamped scheme {s.scheme!r} has no exact prediction here; checks skipped")
+        return report
+    kw = dict(z_threshold=z_threshold)
+    # ------------------------------------------------------------ equipartition
+    harm = [a for a in range(s.d) if kinds[a] == "harmonic"]
+    if harm:
+        m = axis_moments(traj.positions, start=start)
+        for a in harm:
+            try:
+                pred = theory.scheme_position_variance(s.scheme, s.kT, s.kappa[a], s.friction[a], s.dt, s.mass)
+            except ValueError as e:
+                report.notes.append(f"axis {AXES[a]}: {e}")
+                continue
+            report.rows.append(_row(f"variance {AXES[a]}", m["variance"][a], m["variance_err"][a], pred,
+                                    f"{s.scheme} stationary variance (kT/kappa at dt -> 0)", SRC_EQUI, "m^2", **kw))
+            report.rows.append(_row(f"mean {AXES[a]}", m["mean"][a], m["mean_err"][a], s.center[a],
+                                    "force balance: center + F/kappa", "common practice", "m", **kw))
+    # ------------------------------------------------------------ velocities
+    vel = getattr(traj, "velocities", None)
+    if under and vel is not None:
+        mv = axis_moments(vel, start=start)
+        for a in range(s.d):
+            if kinds[a] in ("harmonic", "free"):
+                pred = theory.baoab_velocity_variance(s.kT, s.mass, s.dt, s.kappa[a] if kinds[a] == "harmonic" else 0.0)
+                report.rows.append(_row(f"velocity variance {AXES[a]}", mv["variance"][a], mv["variance_err"][a],
+                                        pred, "BAOAB full-step (kT/m)(1 - w0^2 dt^2/4)",
+                                        "Leimkuhler & Matthews 2013, AMRX; derived", "m^2/s^2", **kw))
+            elif kinds[a] != "moving-trap":
+                report.rows.append(_row(f"velocity variance {AXES[a]}", mv["variance"][a], mv["variance_err"][a],
+                                        s.kT / s.mass, "kT/m (exact only as dt -> 0 for this force)",
+                                        "equipartition", "m^2/s^2", info=True, **kw))
+    # ------------------------------------------------------------ free MSD
+    free = [a for a in range(s.d) if kinds[a] == "free"]
+    n = src.n_frames - start
+    if free and n >= 64:
+        lags = np.unique([1, int(round(math.sqrt(n))), max(1, n // 20)])
+        msd, err = msd_at_lags(traj.positions, lags, start)
+        for a in free:
+            D = s.kT / s.friction[a]
+            for i, lag in enumerate(lags):
+                steps = lag * s.every
+                t = steps * s.dt
+                if s.scheme == "euler-maruyama":
+                    pred, form, src_ = 2 * D * t, "2 D t (exact for Euler-Maruyama)", SRC_MSD
+                elif s.scheme == "leimkuhler-matthews":
+                    pred, form, src_ = float(theory.lm_free_msd(steps, D, s.dt)), "2 D (t - dt/2) (LM)", SRC_MSD
+                else:
+                    pred = float(theory.baoab_free_msd(steps, s.kT, s.mass, s.friction[a], s.dt))
+                    of = float(theory.ornstein_furth_msd(t, s.kT, s.mass, s.friction[a]))
+                    form, src_ = f"BAOAB free-particle MSD (Ornstein-Furth: {of:.6g})", SRC_OF
+                report.rows.append(_row(f"MSD {AXES[a]} at {t:.3g} s", msd[i, a], err[i, a], pred, form, src_,
+                                        "m^2", **kw))
+    # ------------------------------------------------------------ PSD
+    if not under:
+        for a in harm:
+            _psd_rows(report, traj, s, a, start, kw)
+    # ------------------------------------------------------------ double well
+    if s.well is not None:
+        _well_rows(report, traj, s, start, min_events, kw)
+    return report
+
+
+def _psd_rows(report, traj, s, a, start, kw):
+    k, g = s.kappa[a], s.friction[a]
+    tau = g / k
+    n = FrameSource(traj.positions).n_frames - start
+    if tau < s.frame_dt:
+        report.notes.append(f"axis {AXES[a]}: relaxation time below the frame interval, PSD check skipped")
+        return
+    N = int(min(1 << 16, max(64, 1 << int(math.ceil(math.log2(32.0 * tau / s.frame_dt))))))
+    if n < 4 * N:
+        report.notes.append(f"axis {AXES[a]}: {n} frames are fewer than 4 segments of {N}; PSD check skipped")
+        return
+    try:
+        acov = theory.scheme_position_autocovariance(s.scheme, np.arange(N), s.kT, k, g, s.dt, s.every)
+    except ValueError as e:
+        report.notes.append(f"axis {AXES[a]}: {e}")
+        return
+    fit = LorentzianFit(s.frame_dt, model="aliased", segment_length=N, axis=a, start=start).fit(traj.positions)
+    expected = theory.expected_periodogram(acov, s.frame_dt)[1:N // 2 + 1]
+    pred = LorentzianFit(s.frame_dt, model="aliased", segment_length=N).fit_spectrum(
+        fit.frequencies_, expected, fit.psd_count_)
+    form = (f"aliased Lorentzian ML fit; prediction = same fit to the exact expected periodogram of "
+            f"the {s.scheme} process (continuous f_c = {k / (2 * math.pi * g):.6g} Hz, D = {s.kT / g:.6g})")
+    report.rows.append(_row(f"corner frequency {AXES[a]}", fit.corner_frequency_, fit.corner_frequency_err_,
+                            pred.corner_frequency_, form, SRC_OU, "Hz", **kw))
+    report.rows.append(_row(f"diffusion coefficient {AXES[a]} (PSD)", fit.diffusion_, fit.diffusion_err_,
+                            pred.diffusion_, form, SRC_OU, "m^2/s", **kw))
+    report._plot_data[f"psd {AXES[a]}"] = {"f": fit.frequencies_, "P": fit.psd_, "fit": fit.predict(fit.frequencies_),
+                                          "predicted": expected}
+
+
+def _extrema(U, c, L):
+    lo = optimize.minimize_scalar(U, bounds=(c - L, c), method="bounded", options={"xatol": 1e-12 * L}).x
+    hi = optimize.minimize_scalar(U, bounds=(c, c + L), method="bounded", options={"xatol": 1e-12 * L}).x
+    top = optimize.minimize_scalar(lambda x: -U(x), bounds=(lo, hi), method="bounded",
+                                   options={"xatol": 1e-12 * L}).x
+    return float(lo), float(top), float(hi)
+
+
+def _curv(U, x, h):
+    return float((U(x + h) - 2 * U(x) + U(x - h)) / (h * h))
+
+
+def _well_rows(report, traj, s, start, min_events, kw):
+    U = s.axis_potential()
+    a, dU, L, c = s.well
+    if U is None:
+        report.notes.append("double well coupled to other potential terms: histogram and rate checks skipped")
+        return
+    xa, xt, xb = _extrema(U, c, L)
+    grid = np.linspace(c - 3 * L, c + 3 * L, 6001)
+    ug = U(grid)
+    inside = grid[ug - ug.min() < 40.0 * s.kT]
+    support = (float(inside[0]), float(inside[-1]))
+    h = 1e-4 * L
+    k_min, k_top = _curv(U, xa, h), -_curv(U, xt, h)
+    bias = _scheme_bias(s, max(k_min, _curv(U, xb, h)), a)
+    try:
+        bt = BoltzmannTest(U, s.kT, support, n_bins=10, axis=a, start=start).fit(traj.positions)
+        resolution = float(np.median(bt.errors_ / bt.probabilities_))
+        gated = bias > 0.25 * resolution
+        status = "info" if gated else ("pass" if bt.p_value_ >= P_FAIL else "fail")
+        report.rows.append(Row(f"Boltzmann histogram {AXES[a]}", bt.statistic_, None, float(bt.dof_), None, status,
+                               f"chi-square with block covariance, {bt.dof_} dof, p = {bt.p_value_:.3g} "
+                               f"(fail below {P_FAIL:g})", "Boltzmann distribution; Hotelling 1931", "",
+                               f"scheme bias ~{bias:.2g} vs resolution {resolution:.2g}"
+                               + (" (too coarse a step: information only)" if gated else "")))
+        report._plot_data["histogram"] = {"edges": bt.edges_, "observed": bt.observed_, "errors": bt.errors_,
+                                          "probabilities": bt.probabilities_, "support": support,
+                                          "U": U, "kT": s.kT}
+    except InsufficientDataError as e:
+        report.notes.append(f"Boltzmann histogram skipped: {e}")
+    try:
+        er = EscapeRate(xa, xb, s.frame_dt, axis=a, start=start).fit(traj.positions)
+    except ValueError as e:
+        report.notes.append(f"escape rate skipped: {e}")
+        return
+    report._plot_data["dwell"] = {"dwells": np.concatenate([er.dwell_a_, er.dwell_b_]), "rate": er.rate_}
+    barrier = float(U(xt) - U(xa))
+    if s.regime == "overdamped":
+        for name, rate, err, x0, x1, cnt in (("A->B", er.rate_ab_, er.rate_ab_err_, xa, xb, er.dwell_a_.size),
+                                             ("B->A", er.rate_ba_, er.rate_ba_err_, xb, xa, er.dwell_b_.size)):
+            pred = 1.0 / theory.mfpt(U, x0, x1, s.kT, s.friction[a], rtol=1e-8)
+            if cnt < min_events:
+                report.notes.append(f"escape {name}: {cnt} transitions < {min_events}; rate check skipped")
+                continue
+            gated = bias > 0.25 / math.sqrt(cnt)
+            report.rows.append(_row(f"escape rate {name}", rate, err, pred,
+                                    "1/MFPT minimum to minimum (exact double integral); core-set counting",
+                                    SRC_HTB, "1/s", info=gated, note=f"{cnt} transitions", **kw))
+        kod = theory.kramers_rate_overdamped(k_min, k_top, s.friction[a], barrier, s.kT)
+        report.rows.append(_row("escape rate (Kramers, overdamped)", er.rate_, er.rate_err_, kod,
+                                "asymptotic; expected error about +0.5 kT/dU relative "
+                                f"({0.5 * s.kT / barrier:.1%})", SRC_HTB, "1/s", info=True, **kw))
+    else:
+        m = s.mass
+        Ib = theory.barrier_action(U, xa, xt, m)
+        sym = abs(float(U(xb) - U(xa))) < 1e-6 * barrier
+        kt = theory.kramers_rate_turnover(k_min, k_top, m, s.friction[a], Ib, barrier, s.kT, symmetric_double_well=sym)
+        report.rows.append(_row("escape rate (Mel'nikov-Meshkov)", er.rate_, er.rate_err_, kt,
+                                "asymptotic turnover rate" + (" A^2(D)/A(2D) k_SD" if sym else " A(D) k_SD")
+                                + "; expect errors of order 10 % at 5 kT", SRC_MM, "1/s", info=True,
+                                note=f"{er.n_events_} transitions", **kw))
+
+
+def write_plots(traj, report, directory):
+    """Write PNG figures for a checked trajectory into ``directory``; returns the paths.
+
+    MSD vs theory (log axes), PSD vs fitted and predicted spectra, histogram vs
+    Boltzmann density, dwell-time distribution, as far as the report has them.
+    Needs matplotlib (``pip install langsim[plot]``).
+    """
+    try:
+        import matplotlib
+        matplotlib.use("Agg")
+        import matplotlib.pyplot as plt
+    except ImportError as e:
+        raise ImportError("write_plots needs matplotlib: pip install langsim[plot]") from e
+    if not isinstance(report, CheckReport):
+        raise TypeError(f"report must be a CheckReport, got {type(report).__name__}")
+    os.makedirs(directory, exist_ok=True)
+    data = getattr(report, "_plot_data", None)
+    if data is None:
+        data = check(traj)._plot_data
+    s = _Setup(traj.config)
+    paths = []
+
+    def save(fig, name):
+        p = os.path.join(directory, name)
+        fig.savefig(p, dpi=110)
+        plt.close(fig)
+        paths.append(p)
+
+    n = FrameSource(traj.positions).n_frames - report.start_frame
+    L = max(1, min(n // 10, 4096))
+    msd = np.atleast_2d(mean_msd(traj.positions, L, report.start_frame).T).T
+    lags = np.arange(1, L + 1)
+    t = lags * s.frame_dt
+    fig, ax = plt.subplots()
+    for a in range(s.d):
+        ax.loglog(t, msd[1:, a], ".", ms=3, label=f"measured {AXES[a]}")
+        kind = s.axis_kind(a)
+        if kind == "free":
+            ax.loglog(t, 2 * s.kT / s.friction[a] * t, "-", label=f"2Dt {AXES[a]}")
+        elif kind == "harmonic" and s.regime == "overdamped":
+            ax.loglog(t, theory.ou_msd(t, s.kT, s.kappa[a], s.friction[a]), "-", label=f"OU {AXES[a]}")
+    ax.set_xlabel("lag time (s)")
+    ax.set_ylabel("MSD (m$^2$)")
+    ax.legend(fontsize=7)
+    save(fig, "msd.png")
+    for key, d in data.items():
+        if key.startswith("psd"):
+            fig, ax = plt.subplots()
+            ax.loglog(d["f"], d["P"], ".", ms=2, label="blocked periodogram")
+            ax.loglog(d["f"], d["fit"], "-", label="fitted aliased Lorentzian")
+            ax.loglog(d["f"], d["predicted"], "--", label="predicted (exact expectation)")
+            ax.set_xlabel("f (Hz)")
+            ax.set_ylabel("two-sided PSD (m$^2$/Hz)")
+            ax.legend(fontsize=7)
+            save(fig, key.replace(" ", "_") + ".png")
+    if "histogram" in data:
+        d = data["histogram"]
+        x = np.linspace(*d["support"], 400)
+        u = d["U"](x) / d["kT"]
+        w = np.exp(-(u - u.min()))
+        w /= np.trapezoid(w, x)
+        edges = np.concatenate([[d["support"][0]], d["edges"], [d["support"][1]]])
+        width = np.diff(edges)
+        fig, ax = plt.subplots()
+        ax.plot(x, w, "-", label="Boltzmann density")
+        ax.errorbar(0.5 * (edges[1:] + edges[:-1]), d["observed"] / width, d["errors"] / width, fmt="o", ms=3,
+                    label="measured (equal-probability bins)")
+        ax.set_xlabel("position (m)")
+        ax.set_ylabel("density (1/m)")
+        ax.legend(fontsize=7)
+        save(fig, "histogram.png")
+    if "dwell" in data:
+        d = data["dwell"]
+        fig, ax = plt.subplots()
+        ax.hist(d["dwells"], bins=40, density=True, alpha=0.6, label="dwell times")
+        tt = np.linspace(0, d["dwells"].max(), 200)
+        ax.semilogy(tt, d["rate"] * np.exp(-d["rate"] * tt), "-", label="exponential, fitted rate")
+        ax.set_xlabel("dwell time (s)")
+        ax.set_ylabel("probability density (1/s)")
+        ax.legend(fontsize=7)
+        save(fig, "dwell_times.png")
+    return paths
