@@ -2,22 +2,20 @@
 
 Importing the package does no work; the compiled kernels load on first use.
 """
+import importlib
+
 __version__ = "0.1.0"
 
 __all__ = ["run", "load", "check", "Trajectory", "potentials", "__version__"]
 
+_LAZY = {"run": ("engine", "run"), "load": ("trajectory", "load"),
+         "Trajectory": ("trajectory", "Trajectory"), "check": ("check", "check"),
+         "potentials": ("potentials", None)}
 
-def __getattr__(name):  # lazy: keep ``import langsim`` cheap
-    if name == "run":
-        from .engine import run
-        return run
-    if name in ("load", "Trajectory"):
-        from . import trajectory
-        return getattr(trajectory, name)
-    if name == "check":
-        from .check import check
-        return check
-    if name == "potentials":
-        from . import potentials
-        return potentials
-    raise AttributeError(f"module 'langsim' has no attribute {name!r}")
+
+def __getattr__(name):  # lazy, so that ``import langsim`` stays cheap
+    if name not in _LAZY:
+        raise AttributeError(f"module 'langsim' has no attribute {name!r}")
+    module, attr = _LAZY[name]
+    mod = importlib.import_module(f"{__name__}.{module}")
+    return mod if attr is None else getattr(mod, attr)

@@ -40,3 +40,13 @@ def sweep_seeds(seed, n):
     """
     children = np.random.SeedSequence(seed).spawn(n)
     return [int(c.generate_state(1, dtype=np.uint64)[0]) & MAX_SEED for c in children]
+
+
+def burn_in_key(seed):
+    """Philox key words of the burn-in, independent of the recorded run's noise.
+
+    Uses the second child of the seed's SeedSequence.
+    """
+    child = np.random.SeedSequence(seed).spawn(2)[1]
+    words = child.generate_state(2, dtype=np.uint64)
+    return int(words[0]), int(words[1])

@@ -1,0 +1,417 @@
+"""Configuration: a TOML file or a mapping of the same shape -> validated model.
+
+The model objects are plain frozen dataclasses in SI units. ``RunSpec.resolved``
+is the resolved configuration: the input's shape with every default filled in
+and derived values (viscosity "water", Stokes friction, mass, steps/duration,
+the seed) as plain SI numbers. Every problem found is reported together in one
+:class:`~langsim.validation.ConfigError`, each naming key, value and expectation.
+"""
+import copy
+import math
+import os
+import tomllib
+import warnings
+from dataclasses import dataclass
+
+import numpy as np
+
+from . import potentials as _pot
+from . import seeding, units
+from .validation import (ConfigError, Errors, Invalid, Table, boolean, choice, integer, number,
+                         per_axis, text)
+
+#: Schemes by regime. The first is the regime's default.
+SCHEMES = {
+    "overdamped": ("euler-maruyama", "leimkuhler-matthews"),
+    "underdamped": ("baoab",),
+}
+#: Stability limits: refused at or above, warned above the accuracy bound.
+OVERDAMPED_LIMIT = 2.0      # kappa dt / gamma: Euler-Maruyama diverges beyond
+OVERDAMPED_WARN = 0.2       # kappa dt / gamma: EM variance 11 % too high
+UNDERDAMPED_LIMIT = 2.0     # omega dt: BAOAB (Verlet) stability limit
+UNDERDAMPED_WARN = 0.5      # omega dt: full-step velocity variance 6 % low
+VELOCITY_RELAXATION_WARN = 1.0  # dt / (m/gamma): ballistic regime unresolved
+#: Default relaxation times of a burn-in.
+BURN_IN_RELAXATIONS = 20.0
+
+_POS = number(low=0.0)
+_NONNEG = number(low=0.0, low_open=False)
+
+
+class LangsimWarning(UserWarning):
+    """A configuration that runs but is probably not what was meant."""
+
+
+@dataclass(frozen=True)
+class Particles:
+    count: int
+    dimensions: int
+    radius: object
+    density: object
+    mass: object
+    friction: tuple
+    initial: object
+    burn_in: float
+
+
+@dataclass(frozen=True)
+class Medium:
+    temperature: float
+    viscosity: object
+
+    @property
+    def kT(self):
+        return units.k_B * self.temperature
+
+
+@dataclass(frozen=True)
+class Dynamics:
+    regime: str
+    scheme: str
+    dt: float
+    steps: int
+    allow_unstable: bool
+
+    @property
+    def duration(self):
+        return self.steps * self.dt
+
+
+@dataclass(frozen=True)
+class Output:
+    every: int
+    path: object
+    velocities: bool
+    precision: str
+    compression: object
+    checkpoint_every: float
+
+
+@dataclass(frozen=True)
+class RunSpec:
+    """A validated run: model objects plus the resolved configuration."""
+
+    seed: int
+    particles: Particles
+    medium: Medium
+    terms: tuple
+    dynamics: Dynamics
+    output: Output
+    resolved: dict
+
+    @property
+    def kT(self):
+        return self.medium.kT
+
+    @property
+    def n_frames(self):
+        return self.dynamics.steps // self.output.every + 1
+
+    def curvature(self):
+        """Sum over terms of each axis' largest curvature, N/m."""
+        d = self.particles.dimensions
+        return sum((t.curvature(d) for t in self.terms), np.zeros(d))
+
+
+def read(source):
+    """The mapping of a TOML file path, or a copy of a mapping."""
+    if isinstance(source, (str, os.PathLike)):
+        path = os.fspath(source)
+        try:
+            with open(path, "rb") as fh:
+                return tomllib.load(fh), path
+        except FileNotFoundError:
+            raise ConfigError(f"{path}: no such config file") from None
+        except IsADirectoryError:
+            raise ConfigError(f"{path}: is a directory, expected a TOML config file") from None
+        except tomllib.TOMLDecodeError as exc:
+            raise ConfigError(f"{path}: not valid TOML: {exc}") from None
+    if isinstance(source, dict):
+        return _copy(source), None
+    raise ConfigError(f"config = {source!r}: expected a path to a TOML file or a mapping")
+
+
+def _copy(mapping):
+    """Deep copy that leaves callables and arrays (user terms, positions) shared."""
+    out = {}
+    for key, value in mapping.items():
+        if isinstance(value, dict):
+            out[key] = _copy(value)
+        elif isinstance(value, list):
+            out[key] = [(_copy(v) if isinstance(v, dict) else v) for v in value]
+        else:
+            out[key] = value
+    return out
+
+
+def load(source):
+    """Validate a config (TOML path or mapping) into a :class:`RunSpec`.
+
+    Raises
+    ------
+    ConfigError
+        Listing every problem found, each with key, value and expectation.
+    """
+    mapping, path = read(source)
+    errors = Errors(path)
+    top = Table(errors, "", mapping, key_format="{key}")
+    seed = top.get("seed", integer(0, seeding.MAX_SEED))
+    if seed is None:
+        seed = seeding.fresh_seed()
+
+    medium = _medium(Table(errors, "[medium]", top.raw("medium"), "[medium] {key}"))
+    kT = units.k_B * medium.temperature
+    dyn_table = Table(errors, "[dynamics]", top.raw("dynamics"), "[dynamics] {key}")
+    regime = dyn_table.get("regime", choice(*SCHEMES), default="overdamped")
+    particles = _particles(Table(errors, "[particles]", top.raw("particles"), "[particles] {key}"),
+                           medium, regime, errors)
+    terms = _terms(top.raw("potential"), particles.dimensions, kT, errors)
+    dynamics = _dynamics(dyn_table, regime)
+    output = _output(Table(errors, "[output]", top.raw("output"), "[output] {key}"), regime,
+                     dynamics)
+    top.finish()
+    errors.raise_if_any()
+
+    resolved = {
+        "seed": seed,
+        "particles": {
+            "count": particles.count, "dimensions": particles.dimensions,
+            "radius": particles.radius, "density": particles.density, "mass": particles.mass,
+            "friction": list(particles.friction),
+            "initial": particles.initial if isinstance(particles.initial, str)
+            else np.asarray(particles.initial).tolist(),
+            "burn_in": particles.burn_in},
+        "medium": {"temperature": medium.temperature, "viscosity": medium.viscosity},
+        "potential": [t.resolved() for t in terms],
+        "dynamics": {"regime": dynamics.regime, "scheme": dynamics.scheme, "dt": dynamics.dt,
+                     "steps": dynamics.steps, "duration": dynamics.duration,
+                     "allow_unstable": dynamics.allow_unstable},
+        "output": {"every": output.every, "path": output.path, "velocities": output.velocities,
+                   "precision": output.precision, "compression": output.compression,
+                   "checkpoint_every": output.checkpoint_every},
+    }
+    spec = RunSpec(seed, particles, medium, tuple(terms), dynamics, output, resolved)
+    _guard_step(spec, path)
+    spec = _with_burn_in(spec)
+    return spec
+
+
+def _medium(t):
+    temperature = t.get("temperature", _POS, default=295.15, units="K")
+    visc = t.raw("viscosity", "water")
+    if visc == "water":
+        lo, hi = units.WATER_T_RANGE
+        if lo <= temperature <= hi:
+            viscosity = units.water_viscosity(temperature)
+        else:
+            t.errors.add(t.where("viscosity"), visc,
+                         f"a number > 0 (Pa s): 'water' needs a temperature between {lo} and {hi} K, "
+                         f"got {temperature} K")
+            viscosity = None
+    elif visc is None:
+        viscosity = None
+    else:
+        try:
+            viscosity = _POS(visc)
+        except Invalid:
+            t.errors.add(t.where("viscosity"), visc, "a number > 0 or the string 'water'", "Pa s")
+            viscosity = None
+    t.finish()
+    return Medium(temperature, viscosity)
+
+
+def _particles(t, medium, regime, errors):
+    count = t.get("count", integer(1, 10**9), default=1)
+    d = t.get("dimensions", integer(1, 3), default=1)
+    radius = t.get("radius", _POS, units="m")
+    density = t.get("density", _POS, units="kg/m^3")
+    mass = t.get("mass", _POS, units="kg")
+    friction = t.get("friction", per_axis(_POS, d), units="kg/s")
+    if friction is None:
+        if radius is None:
+            if not t.has("radius"):
+                    errors.note("[particles] radius is missing: expected a number > 0 (m), "
+                            "or give [particles] friction (kg/s)")
+            friction = [1.0] * d
+        elif medium.viscosity is None:
+            errors.note("[medium] viscosity is missing: Stokes friction needs it, "
+                        "or give [particles] friction (kg/s)")
+            friction = [1.0] * d
+        else:
+            friction = [units.stokes_friction(medium.viscosity, radius)] * d
+    if mass is not None and density is not None:
+        errors.note("[particles] mass and density are both given: expected one of them")
+    if mass is None and density is not None:
+        if radius is None:
+            errors.note("[particles] density needs radius to give a mass: expected radius (m) or mass (kg)")
+        else:
+            mass = units.sphere_mass(radius, density)
+    if regime == "underdamped" and mass is None and density is None:
+        errors.note("[particles] mass is missing: the underdamped regime needs mass (kg) "
+                    "or density (kg/m^3) with radius")
+    initial = _initial(t, count, d)
+    burn_in = t.get("burn_in", _NONNEG, units="s")
+    t.finish()
+    return Particles(count, d, radius, density, mass, tuple(friction), initial, burn_in)
+
+
+def _initial(t, count, d):
+    value = t.raw("initial", "equilibrium")
+    if isinstance(value, str):
+        if value != "equilibrium":
+            t.bad("initial", "'equilibrium', a point of dimensions values, or an array "
+                             "of count x dimensions positions (m)")
+        return "equilibrium"
+    try:
+        arr = np.array(value, dtype=float)
+    except (TypeError, ValueError):
+        arr = None
+    if arr is not None and arr.shape == (d,) and np.all(np.isfinite(arr)):
+        return arr
+    if arr is not None and arr.shape == (count, d) and np.all(np.isfinite(arr)):
+        return arr
+    shape = "?" if arr is None else arr.shape
+    t.errors.add(t.where("initial"), value if arr is None or arr.size < 10 else f"array of shape {shape}",
+                 f"'equilibrium', a point of {d} finite values, or an array of shape "
+                 f"({count}, {d}) (m)")
+    return "equilibrium"
+
+
+def _terms(value, d, kT, errors):
+    if value is None:
+        return []
+    if isinstance(value, dict):
+        value = [value]
+    if not isinstance(value, list):
+        errors.add("potential", value, "an array of tables ([[potential]])")
+        return []
+    terms = []
+    for i, entry in enumerate(value):
+        t = Table(errors, f"potential[{i}]", entry)
+        kind = t.get("type", choice(*_pot.TERMS), required=True)
+        if kind is None:
+            continue
+        cls = _pot.TERMS[kind]
+        term = cls.from_table(t, d, kT)
+        t.finish()
+        terms.append(term)
+    return terms
+
+
+def _dynamics(t, regime):
+    schemes = SCHEMES[regime] if regime in SCHEMES else SCHEMES["overdamped"]
+    scheme = t.get("scheme", choice(*schemes))
+    if t.has("scheme") and scheme is None:
+        other = [r for r, s in SCHEMES.items() if t.mapping["scheme"] in s]
+        if other:
+            t.errors.messages[-1] += f"; {t.mapping['scheme']!r} is a scheme of the {other[0]} regime"
+    dt = t.get("dt", _POS, required=True, units="s") or 1.0
+    steps = t.get("steps", integer(1))
+    duration = t.get("duration", _POS, units="s")
+    if steps is not None and duration is not None:
+        t.errors.note("[dynamics] steps and duration are both given: expected one of them")
+    elif steps is None and duration is None:
+        if not (t.has("steps") or t.has("duration")):
+            t.errors.note("[dynamics] duration is missing: expected duration (s) or steps")
+        steps = 1
+    elif steps is None:
+        steps = max(1, round(duration / dt))
+        if abs(steps * dt - duration) > 1e-9 * duration:
+            t.errors.add(t.where("duration"), duration,
+                         f"a whole number of steps of dt = {dt!r} s (nearest: {steps * dt!r})", "s")
+    allow = t.get("allow_unstable", boolean, default=False)
+    t.finish()
+    return Dynamics(regime, scheme or schemes[0], dt, steps, allow)
+
+
+def _output(t, regime, dynamics):
+    every = t.get("every", integer(1), default=1)
+    if dynamics.steps % every:
+        t.errors.add(t.where("every"), every,
+                     f"a divisor of the number of steps ({dynamics.steps})")
+    path = t.get("path", text)
+    velocities = t.get("velocities", boolean, default=(regime == "underdamped"))
+    if velocities and regime != "underdamped":
+        t.bad("velocities", "false: overdamped runs have no velocities")
+        velocities = False
+    precision = t.get("precision", choice("double", "single"), default="double")
+    compression = t.get("compression", choice("none", "gzip", "lzf"), default="none")
+    checkpoint_every = t.get("checkpoint_every", _POS, default=30.0, units="s of wall time")
+    t.finish()
+    return Output(every, path, velocities, precision,
+                  None if compression == "none" else compression, checkpoint_every)
+
+
+def _guard_step(spec, path):
+    """Refuse unstable steps, warn about inaccurate ones (ratio and a suggested dt)."""
+    dyn = spec.dynamics
+    kappa = spec.curvature()
+    gamma = np.array(spec.particles.friction)
+    where = f"{path}: " if path else ""
+    if dyn.regime == "overdamped":
+        ratio = kappa * dyn.dt / gamma
+        worst = int(np.argmax(ratio))
+        r = float(ratio[worst])
+        limit, warn, what = OVERDAMPED_LIMIT, OVERDAMPED_WARN, "stiffness*dt/friction"
+        suggest = 0.05 * gamma[worst] / kappa[worst] if kappa[worst] > 0 else None
+    else:
+        m = spec.particles.mass
+        omega = np.sqrt(kappa / m)
+        r = float(np.max(omega) * dyn.dt)
+        worst = int(np.argmax(omega))
+        limit, warn, what = UNDERDAMPED_LIMIT, UNDERDAMPED_WARN, "omega*dt"
+        suggest = 0.1 / omega[worst] if omega[worst] > 0 else None
+        tau_p = m / float(np.max(gamma))
+        if dyn.dt > VELOCITY_RELAXATION_WARN * tau_p:
+            warnings.warn(f"{where}[dynamics] dt = {dyn.dt!r} s is {dyn.dt / tau_p:.3g} times the "
+                          f"velocity relaxation time m/friction = {tau_p:.3g} s: BAOAB stays stable, "
+                          f"but the ballistic regime is not resolved (suggested dt <= "
+                          f"{0.1 * tau_p:.3g} s)", LangsimWarning, stacklevel=3)
+    if r >= limit and not dyn.allow_unstable:
+        raise ConfigError(f"{where}[dynamics] dt = {dyn.dt!r}: unstable, {what} = {r:.3g} on axis "
+                          f"{worst} (limit {limit:g}); expected dt < {dyn.dt * limit / r:.3g} s, "
+                          f"suggested {suggest:.3g} s (set allow_unstable = true to run anyway)")
+    if r > warn:
+        warnings.warn(f"{where}[dynamics] dt = {dyn.dt!r} s gives {what} = {r:.3g} on axis {worst}: "
+                      f"discretisation error is large (suggested dt = {suggest:.3g} s)",
+                      LangsimWarning, stacklevel=3)
+
+
+def separable(spec):
+    """True when every term is a sum of one-dimensional functions of each axis."""
+    return all(t.separable for t in spec.terms)
+
+
+def _with_burn_in(spec):
+    """Fill in the burn-in: 0 where equilibrium is sampled exactly, else a stated length."""
+    p = spec.particles
+    if p.burn_in is not None:
+        value = p.burn_in
+    elif isinstance(p.initial, str) and spec.terms and not separable(spec):
+        value = BURN_IN_RELAXATIONS * relaxation_time(spec)
+    else:
+        value = 0.0
+    value = math.ceil(value / spec.dynamics.dt) * spec.dynamics.dt
+    resolved = copy.deepcopy({k: v for k, v in spec.resolved.items() if k != "potential"})
+    resolved["potential"] = spec.resolved["potential"]
+    resolved["particles"]["burn_in"] = value
+    particles = Particles(**{**p.__dict__, "burn_in": value})
+    return RunSpec(spec.seed, particles, spec.medium, spec.terms, spec.dynamics, spec.output,
+                   resolved)
+
+
+def relaxation_time(spec):
+    """Slowest relaxation time estimated from the built-in curvature, s.
+
+    Overdamped: friction/stiffness; underdamped: the larger of that and the
+    energy relaxation time 2 m/friction. User terms contribute no curvature
+    estimate; with none at all the result is 1000 steps.
+    """
+    kappa = spec.curvature()
+    gamma = np.array(spec.particles.friction)
+    with np.errstate(divide="ignore"):
+        tau = np.where(kappa > 0, gamma / np.where(kappa > 0, kappa, 1.0), 0.0)
+    slow = float(np.max(tau))
+    if spec.dynamics.regime == "underdamped":
+        slow = max(slow, 2.0 * spec.particles.mass / float(np.min(gamma)))
+    return slow if slow > 0 else 1000 * spec.dynamics.dt

@@ -1,0 +1,525 @@
+"""Potential terms. One definition of each term gives its energy and force.
+
+Built-in terms are encoded as parameter rows for one compiled force function
+(:mod:`langsim.kernels.forces`), so any sum of them runs without recompiling.
+User terms are an energy expression (parsed through a whitelist, differentiated
+with sympy and compiled) or a numba-compilable Python function
+``f(x, t, force) -> energy`` that writes -grad U into ``force``.
+
+All values are SI: J, m, N/m, N, s. A per-axis value is a scalar (all axes) or
+a sequence of ``dimensions`` values.
+"""
+import ast
+import difflib
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .kernels import forces as _k
+from .validation import Invalid, number, integer, per_axis, text
+
+#: Energy above the minimum (in kT) beyond which the Boltzmann density is
+#: neglected when sampling initial positions: e^-50 ~ 2e-22.
+SAMPLING_CUTOFF_KT = 50.0
+#: Basin of a Gaussian well for initial sampling: within this many waists.
+GAUSSIAN_BASIN_WAISTS = 2.0
+
+_POS = number(low=0.0)
+_NONNEG = number(low=0.0, low_open=False)
+_REAL = number()
+
+
+def _row():
+    return np.zeros(_k.N_SLOTS)
+
+
+def _put(row, start, values):
+    row[start:start + len(values)] = values
+
+
+@dataclass(frozen=True)
+class Term:
+    """Base of all terms."""
+
+    #: Name in the ``type`` key of a ``[[potential]]`` table.
+    name = ""
+    #: True when the term is a sum of one-dimensional functions of each axis.
+    separable = True
+    #: Compiled built-in code, or None for user terms.
+    code = None
+
+    def resolved(self):
+        """The resolved-config table of this term (plain SI values)."""
+        out = {"type": self.name}
+        for key, value in self.__dict__.items():
+            out[key] = list(value) if isinstance(value, tuple) else value
+        return out
+
+    def curvature(self, dimensions):
+        """Largest curvature of the term along each axis (N/m), for the dt guard."""
+        return np.zeros(dimensions)
+
+    def sampling_range(self, axis, kT):
+        """Interval holding the Boltzmann density on ``axis``, or None when the
+        term does not confine that axis."""
+        return None
+
+    def static(self):
+        """The same term frozen at its t = 0 configuration."""
+        return self
+
+
+def _axes(table, key, d, element, default, units):
+    return tuple(table.get(key, per_axis(element, d), default=[default] * d, units=units))
+
+
+def _barrier(table, kT, key="barrier"):
+    """``key`` in J, or ``key_kT`` in units of kT: exactly one of them."""
+    in_kT = key + "_kT"
+    if table.has(in_kT):
+        if table.has(key):
+            table.errors.note(f"{table.where(key)} and {in_kT} are both given: expected one")
+        table.known.append(key)
+        value = table.get(in_kT, _POS, units="kT")
+        return None if value is None else value * kT
+    table.known.append(in_kT)
+    return table.get(key, _POS, required=True, units=f"J, or {in_kT} in units of kT")
+
+
+def _axis(table, d):
+    return table.get("axis", integer(0, d - 1), default=0)
+
+
+@dataclass(frozen=True)
+class Harmonic(Term):
+    """U = sum_i stiffness_i/2 (x_i - c_i(t))^2, c(t) = center + velocity t
+    + amplitude sin(2 pi frequency t + phase) (a dragged or oscillating trap)."""
+
+    stiffness: tuple
+    center: tuple
+    velocity: tuple
+    amplitude: tuple
+    frequency: float = 0.0
+    phase: float = 0.0
+    name = "harmonic"
+    code = _k.HARMONIC
+
+    @classmethod
+    def from_table(cls, t, d, kT):
+        return cls(
+            stiffness=tuple(t.get("stiffness", per_axis(_NONNEG, d), required=True, units="N/m")
+                            or [1.0] * d),
+            center=_axes(t, "center", d, _REAL, 0.0, "m"),
+            velocity=_axes(t, "velocity", d, _REAL, 0.0, "m/s"),
+            amplitude=_axes(t, "amplitude", d, _REAL, 0.0, "m"),
+            frequency=t.get("frequency", _NONNEG, default=0.0, units="Hz"),
+            phase=t.get("phase", _REAL, default=0.0, units="rad"))
+
+    def encode(self, d):
+        row = _row()
+        _put(row, 0, self.stiffness)
+        _put(row, 3, self.center)
+        _put(row, 6, self.velocity)
+        _put(row, 9, self.amplitude)
+        row[12], row[13] = self.frequency, self.phase
+        return row
+
+    @property
+    def moving(self):
+        return any(self.velocity) or (any(self.amplitude) and self.frequency > 0)
+
+    def center_at(self, time):
+        return np.array(self.center) + np.array(self.velocity) * time + np.array(
+            self.amplitude) * math.sin(2 * math.pi * self.frequency * time + self.phase)
+
+    def curvature(self, d):
+        return np.array(self.stiffness[:d], dtype=float)
+
+    def sampling_range(self, axis, kT):
+        k = self.stiffness[axis]
+        if k <= 0:
+            return None
+        c = self.center_at(0.0)[axis]
+        half = math.sqrt(2 * SAMPLING_CUTOFF_KT * kT / k)
+        return c - half, c + half
+
+    def static(self):
+        d = len(self.center)
+        return Harmonic(self.stiffness, tuple(self.center_at(0.0)), (0.0,) * d, (0.0,) * d, 0.0, 0.0)
+
+
+@dataclass(frozen=True)
+class DoubleWell(Term):
+    """Quartic double well along ``axis``: U = barrier ((2 s/separation)^2 - 1)^2,
+    s = x_axis - center_axis, minima at s = +-separation/2, barrier top at s = 0;
+    harmonic with ``stiffness`` on the other axes."""
+
+    barrier: float
+    separation: float
+    axis: int
+    stiffness: tuple
+    center: tuple
+    name = "double-well"
+    code = _k.DOUBLE_WELL
+
+    @classmethod
+    def from_table(cls, t, d, kT):
+        return cls(barrier=_barrier(t, kT) or 1.0,
+                   separation=t.get("separation", _POS, required=True, units="m") or 1.0,
+                   axis=_axis(t, d),
+                   stiffness=_axes(t, "stiffness", d, _NONNEG, 0.0, "N/m"),
+                   center=_axes(t, "center", d, _REAL, 0.0, "m"))
+
+    def encode(self, d):
+        row = _row()
+        row[0], row[1], row[2] = self.barrier, self.separation, self.axis
+        _put(row, 3, self.center)
+        _put(row, 6, self.stiffness)
+        return row
+
+    @property
+    def well_curvature(self):
+        """U'' at the minima, N/m (32 barrier / separation^2)."""
+        return 32.0 * self.barrier / self.separation**2
+
+    def curvature(self, d):
+        out = np.array(self.stiffness[:d], dtype=float)
+        out[self.axis] = self.well_curvature
+        return out
+
+    def sampling_range(self, axis, kT):
+        c = self.center[axis]
+        if axis == self.axis:
+            half = 0.5 * self.separation * math.sqrt(
+                1.0 + math.sqrt(SAMPLING_CUTOFF_KT * kT / self.barrier))
+            return c - half, c + half
+        k = self.stiffness[axis]
+        if k <= 0:
+            return None
+        half = math.sqrt(2 * SAMPLING_CUTOFF_KT * kT / k)
+        return c - half, c + half
+
+
+@dataclass(frozen=True)
+class Periodic(Term):
+    """Tilted periodic potential along ``axis``:
+    U = barrier/2 (1 - cos(2 pi s/period)) - tilt s, s = x_axis - center_axis.
+    ``barrier`` is the peak-to-peak height of the untilted corrugation."""
+
+    barrier: float
+    period: float
+    tilt: float
+    axis: int
+    center: tuple
+    name = "periodic"
+    code = _k.PERIODIC
+
+    @classmethod
+    def from_table(cls, t, d, kT):
+        return cls(barrier=_barrier(t, kT) or 1.0,
+                   period=t.get("period", _POS, required=True, units="m") or 1.0,
+                   tilt=t.get("tilt", _REAL, default=0.0, units="N"),
+                   axis=_axis(t, d),
+                   center=_axes(t, "center", d, _REAL, 0.0, "m"))
+
+    def encode(self, d):
+        row = _row()
+        row[0], row[1], row[2], row[3] = self.barrier, self.period, self.tilt, self.axis
+        _put(row, 4, self.center)
+        return row
+
+    def curvature(self, d):
+        out = np.zeros(d)
+        out[self.axis] = 0.5 * self.barrier * (2 * math.pi / self.period) ** 2
+        return out
+
+    def period_range(self):
+        c = self.center[self.axis]
+        return c - 0.5 * self.period, c + 0.5 * self.period
+
+
+@dataclass(frozen=True)
+class GaussianWell(Term):
+    """Finite-depth well: U = -depth exp(-2 sum_i (x_i - c_i)^2 / waist_i^2)
+    (a focused beam's intensity profile, waist = 1/e^2 radius)."""
+
+    depth: float
+    waist: tuple
+    center: tuple
+    name = "gaussian-well"
+    code = _k.GAUSSIAN_WELL
+
+    @property
+    def separable(self):
+        return len(self.center) == 1
+
+    @classmethod
+    def from_table(cls, t, d, kT):
+        return cls(depth=_barrier(t, kT, "depth") or 1.0,
+                   waist=tuple(t.get("waist", per_axis(_POS, d), required=True, units="m")
+                               or [1.0] * d),
+                   center=_axes(t, "center", d, _REAL, 0.0, "m"))
+
+    def encode(self, d):
+        row = _row()
+        row[0] = self.depth
+        _put(row, 1, self.waist)
+        _put(row, 4, self.center)
+        return row
+
+    def curvature(self, d):
+        return np.array([4.0 * self.depth / w**2 for w in self.waist[:d]])
+
+    def sampling_range(self, axis, kT):
+        half = GAUSSIAN_BASIN_WAISTS * self.waist[axis]
+        return self.center[axis] - half, self.center[axis] + half
+
+
+@dataclass(frozen=True)
+class ConstantForce(Term):
+    """U = -force . x (gravity, buoyancy, an applied flow)."""
+
+    force: tuple
+    name = "constant-force"
+    code = _k.CONSTANT_FORCE
+
+    @classmethod
+    def from_table(cls, t, d, kT):
+        return cls(force=tuple(t.get("force", per_axis(_REAL, d), required=True, units="N")
+                               or [0.0] * d))
+
+    def encode(self, d):
+        row = _row()
+        _put(row, 0, self.force)
+        return row
+
+
+# ----------------------------------------------------------------- expressions
+
+_FUNCTIONS = ("exp", "log", "sqrt", "sin", "cos", "tan", "sinh", "cosh", "tanh",
+              "atan", "Abs")
+_CONSTANTS = {"pi": math.pi, "e": math.e}
+_COORDS = ("x", "y", "z")
+_BINOPS = {ast.Add: "+", ast.Sub: "-", ast.Mult: "*", ast.Div: "/", ast.Pow: "**"}
+
+
+def _caret(source, node_or_col, message):
+    col = node_or_col if isinstance(node_or_col, int) else getattr(node_or_col, "col_offset", 0)
+    return f"{message}\n    {source}\n    {' ' * col}^"
+
+
+def parse_energy(source, parameters, dimensions):
+    """Parse an energy expression into a sympy expression, safely.
+
+    The string is parsed by Python's ``ast`` and rebuilt node by node from a
+    whitelist (numbers, the names x, y, z (up to ``dimensions``), t, the
+    parameter names, pi, e, the functions in ``_FUNCTIONS``, + - * / **).
+    Nothing is evaluated as Python.
+
+    Raises
+    ------
+    Invalid
+        With a message pointing at the offending part of the string.
+    """
+    import sympy
+
+    coords = _COORDS[:dimensions]
+    names = {c: sympy.Symbol(c, real=True) for c in coords}
+    names["t"] = sympy.Symbol("t", real=True)
+    for key in parameters:
+        names[key] = sympy.Symbol(key, real=True)
+    allowed = sorted(list(names) + list(_CONSTANTS) + list(_FUNCTIONS))
+    try:
+        tree = ast.parse(source.strip(), mode="eval")
+    except SyntaxError as exc:
+        raise Invalid(_caret(source.strip(), max((exc.offset or 1) - 1, 0),
+                             "an energy expression; it does not parse here")) from None
+    src = source.strip()
+
+    def unknown(node, name):
+        close = difflib.get_close_matches(name, allowed, n=1)
+        hint = f" (did you mean {close[0]!r}?)" if close else ""
+        if name in _COORDS:
+            hint = f" ({name} needs dimensions > {_COORDS.index(name)})"
+        return Invalid(_caret(src, node, f"an energy expression; unknown name {name!r}{hint}; "
+                                         f"allowed: {', '.join(allowed)}"))
+
+    def build(node):
+        if isinstance(node, ast.Expression):
+            return build(node.body)
+        if isinstance(node, ast.Constant) and isinstance(node.value, (int, float)) \
+                and not isinstance(node.value, bool):
+            return sympy.Float(node.value) if isinstance(node.value, float) else sympy.Integer(node.value)
+        if isinstance(node, ast.Name):
+            if node.id in names:
+                return names[node.id]
+            if node.id in _CONSTANTS:
+                return sympy.pi if node.id == "pi" else sympy.E
+            raise unknown(node, node.id)
+        if isinstance(node, ast.BinOp) and type(node.op) in _BINOPS:
+            a, b = build(node.left), build(node.right)
+            op = type(node.op)
+            if op is ast.Add:
+                return a + b
+            if op is ast.Sub:
+                return a - b
+            if op is ast.Mult:
+                return a * b
+            if op is ast.Div:
+                return a / b
+            return a ** b
+        if isinstance(node, ast.BinOp) and isinstance(node.op, ast.BitXor):
+            raise Invalid(_caret(src, node.right, "an energy expression; '^' is not a power here, "
+                                                  "write ** instead"))
+        if isinstance(node, ast.UnaryOp) and isinstance(node.op, (ast.USub, ast.UAdd)):
+            v = build(node.operand)
+            return -v if isinstance(node.op, ast.USub) else v
+        if isinstance(node, ast.Call):
+            if not isinstance(node.func, ast.Name) or node.func.id not in _FUNCTIONS:
+                fname = node.func.id if isinstance(node.func, ast.Name) else ast.unparse(node.func)
+                raise unknown(node, fname)
+            if node.keywords or len(node.args) != 1:
+                raise Invalid(_caret(src, node, f"an energy expression; {node.func.id}() takes "
+                                                "exactly one argument"))
+            return getattr(sympy, node.func.id)(build(node.args[0]))
+        what = type(node).__name__
+        raise Invalid(_caret(src, node, f"an energy expression; {what} is not allowed "
+                                        "(only numbers, names, + - * / ** and functions)"))
+
+    expr = build(tree)
+    return expr, [names[c] for c in coords], names["t"]
+
+
+@dataclass(frozen=True)
+class Expression(Term):
+    """A user energy U(x, y, z, t) in J, given as a string with named parameters."""
+
+    energy: str
+    parameters: dict = field(default_factory=dict)
+    name = "expression"
+    separable = False
+
+    @classmethod
+    def from_table(cls, t, d, kT):
+        energy = t.get("energy", text, required=True) or "0"
+        params = t.raw("parameters", {})
+        if not isinstance(params, dict):
+            t.bad("parameters", "a table of name = number")
+            params = {}
+        clean = {}
+        for key, value in params.items():
+            where = f"{t.path}.parameters.{key}"
+            if not key.isidentifier() or key in _COORDS + ("t",) + tuple(_CONSTANTS) + _FUNCTIONS:
+                t.errors.add(where, key, "a parameter name that is an identifier and not "
+                                         "x, y, z, t, pi, e or a function name")
+                continue
+            try:
+                clean[key] = number()(value)
+            except Invalid as exc:
+                t.errors.add(where, value, exc.expected)
+        try:
+            parse_energy(energy, clean, d)
+        except Invalid as exc:
+            t.errors.add(t.where("energy"), energy, exc.expected, "J")
+        return cls(energy=energy, parameters=clean)
+
+    def resolved(self):
+        return {"type": self.name, "energy": self.energy, "parameters": dict(self.parameters)}
+
+    def sympy_energy(self, d):
+        import sympy
+        expr, coords, t = parse_energy(self.energy, self.parameters, d)
+        values = {sympy.Symbol(k, real=True): v for k, v in self.parameters.items()}
+        return expr.subs(values), coords, t
+
+
+@dataclass(frozen=True)
+class Function(Term):
+    """A Python/numba function ``f(x, t, force) -> energy`` (Python API only).
+
+    ``x`` is the position (dimensions,) in m, ``t`` the time in s; the
+    function writes -grad U (N) into ``force`` (dimensions,) and returns U (J).
+    """
+
+    function: object
+    name = "function"
+    separable = False
+
+    @classmethod
+    def from_table(cls, t, d, kT):
+        fn = t.raw("function")
+        if not callable(fn):
+            t.bad("function", "a callable f(x, t, force) -> energy")
+            return cls(function=None)
+        return cls(function=fn)
+
+    def resolved(self):
+        fn = self.function
+        return {"type": self.name,
+                "function": f"{getattr(fn, '__module__', '?')}.{getattr(fn, '__qualname__', repr(fn))}"}
+
+
+#: Registry: config ``type`` string -> term class.
+TERMS = {cls.name: cls for cls in (Harmonic, DoubleWell, Periodic, GaussianWell,
+                                   ConstantForce, Expression, Function)}
+
+
+def builtin_rows(terms, d):
+    """(codes, params) arrays of the built-in terms of ``terms``."""
+    built = [t for t in terms if t.code is not None]
+    codes = np.array([t.code for t in built], dtype=np.int64)
+    params = np.array([t.encode(d) for t in built], dtype=np.float64).reshape(len(built), _k.N_SLOTS)
+    return codes, params
+
+
+_SOURCE_TEMPLATE = """
+def {name}(pos, t, force):
+{unpack}
+{body}
+    return {energy}
+"""
+
+
+def compile_user_terms(terms, d):
+    """One numba function ``f(x, t, force) -> energy`` summing all user terms,
+    or None when there are none."""
+    from numba import njit
+    import sympy
+    from sympy.printing.pycode import pycode
+
+    exprs = [t for t in terms if isinstance(t, Expression)]
+    funcs = [t.function for t in terms if isinstance(t, Function)]
+    if not exprs and not funcs:
+        return None
+    namespace = {"math": math, "np": np}
+    parts = []
+    if exprs:
+        total = 0
+        coords = t_sym = None
+        for term in exprs:
+            e, coords, t_sym = term.sympy_energy(d)
+            total = total + e
+        lines = [f"    {c.name} = pos[{i}]" for i, c in enumerate(coords)]
+        body = [f"    force[{i}] = {pycode(-sympy.diff(total, c), fully_qualified_modules=True)}"
+                for i, c in enumerate(coords)]
+        src = _SOURCE_TEMPLATE.format(name="_expression_term", unpack="\n".join(lines) or "    pass",
+                                      body="\n".join(body),
+                                      energy=pycode(total, fully_qualified_modules=True))
+        src = src.replace("math.Abs", "abs")
+        exec(compile(src, "<langsim expression>", "exec"), namespace)  # whitelisted AST only
+        parts.append(njit(namespace["_expression_term"]))
+    for fn in funcs:
+        parts.append(fn if hasattr(fn, "py_func") else njit(fn))
+    if len(parts) == 1:
+        return parts[0]
+    calls = []
+    for i, fn in enumerate(parts):
+        namespace[f"_part{i}"] = fn
+        calls.append(f"    energy += _part{i}(pos, t, scratch)\n"
+                     f"    for a in range({d}):\n        force[a] += scratch[a]")
+    src = ("def _sum_of_terms(pos, t, force):\n    scratch = np.empty({d})\n"
+           "    energy = 0.0\n    for a in range({d}):\n        force[a] = 0.0\n").format(d=d)
+    src += "\n".join(calls) + "\n    return energy\n"
+    exec(compile(src, "<langsim user terms>", "exec"), namespace)
+    return njit(namespace["_sum_of_terms"])
