@@ -48,7 +48,7 @@ def test_aliased_lorentzian_worked_values_and_alias_sum():
 def test_blur_factor_and_blurred_psd():
     tau = th.relaxation_time(GAMMA, KAPPA)
     vals = [th.blur_variance_factor(W, tau) for W in (1e-4, 1e-3, 5e-3)]
-    np.testing.assert_allclose(vals, [0.961419, 0.697596, 0.279386], rtol=1e-6)  # Wong & Halvorsen 2006
+    np.testing.assert_allclose(vals, [0.961419, 0.697596, 0.279386], rtol=2e-6)  # table rounding; Wong & Halvorsen 2006
     W = 1e-3  # independent double integral of the averaged autocorrelation
     direct = 2 / W**2 * integrate.quad(lambda u: (W - u) * math.exp(-u / tau), 0, W)[0]
     assert th.blur_variance_factor(W, tau) == pytest.approx(direct, rel=1e-10)
