@@ -261,6 +261,10 @@ class LorentzianFit(_SpectrumFit):
 class OscillatorFit(_SpectrumFit):
     """Resonance frequency, quality factor and variance of a damped oscillator from its PSD.
 
+    The model ignores spectral leakage: choose segments much longer than the
+    ring-down time Q/(pi f0) (a resolution of f0/Q over 20 or finer), or Q is
+    biased low.
+
     Parameters
     ----------
     dt : float, s; aliased : bool (alias-sum the model over ``n_alias`` images
