@@ -6,12 +6,12 @@ Errors come from Flyvbjerg-Petersen blocking of the frame series (see
 """
 import numpy as np
 
-from .stats import Estimator, FrameSource, block_means, blocking
+from .stats import Estimator, FrameSource, InsufficientDataError, block_means, blocking
 
 __all__ = ["axis_moments", "Equipartition"]
 
 
-def axis_moments(positions, start=0, stop=None, min_blocks=16):
+def axis_moments(positions, start=0, stop=None, min_blocks=16, strict=True):
     """Mean and variance per axis with standard errors, streaming over frames.
 
     Parameters
@@ -19,6 +19,9 @@ def axis_moments(positions, start=0, stop=None, min_blocks=16):
     positions : array-like, (frames,), (frames, particles) or (frames, particles, dims), m
     start, stop : int
         Frame range used.
+    strict : bool
+        If False, an axis whose blocking finds no plateau gets NaN errors
+        instead of raising InsufficientDataError.
 
     Returns
     -------
@@ -51,14 +54,20 @@ def axis_moments(positions, start=0, stop=None, min_blocks=16):
     mu = m1.mean(axis=0)
     out = {k: np.empty(d) for k in ("mean", "mean_err", "variance", "variance_err", "inefficiency")}
     for a in range(d):
-        r1 = blocking(m1[:, a], base, used, max(naive[a, a], 0.0), min_blocks)
+        out["mean"][a] = mu[a] + shift[a]
+        out["variance"][a] = m2[:, a].mean() - mu[a] ** 2
         lin = m2[:, a] - 2.0 * mu[a] * m1[:, a]
         w = np.zeros(2 * d)
         w[d + a], w[a] = 1.0, -2.0 * mu[a]
-        r2 = blocking(lin, base, used, max(float(w @ naive @ w), 0.0), min_blocks)
-        out["mean"][a] = mu[a] + shift[a]
+        try:
+            r1 = blocking(m1[:, a], base, used, max(naive[a, a], 0.0), min_blocks)
+            r2 = blocking(lin, base, used, max(float(w @ naive @ w), 0.0), min_blocks)
+        except InsufficientDataError:
+            if strict:
+                raise
+            out["mean_err"][a] = out["variance_err"][a] = out["inefficiency"][a] = np.nan
+            continue
         out["mean_err"][a] = r1.error
-        out["variance"][a] = m2[:, a].mean() - mu[a] ** 2
         out["variance_err"][a] = r2.error
         out["inefficiency"][a] = r2.inefficiency * base
     res = {k: src.out(v) for k, v in out.items()}

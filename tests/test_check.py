@@ -1,0 +1,140 @@
+"""check() on synthetic trajectories with known ground truth.
+
+The harmonic data are Euler-Maruyama sampled exactly through its AR(1) form
+(stationary variance (kT/kappa)/(1 - kappa dt/(2 gamma)), reference notes section 6);
+check() must pass on them and fail, naming the quantity, on wrong inputs.
+"""
+import copy
+import json
+import math
+
+import numpy as np
+import pytest
+
+from langsim.check import CheckReport, check, write_plots
+from test_analysis import GAMMA, KT, Traj, config, double_well_sim, harmonic_trajectory, rng
+
+
+@pytest.fixture(scope="module")
+def harmonic():
+    return harmonic_trajectory(1)
+
+
+def failed(report):
+    return {r.quantity for r in report.rows if r.status == "fail"}
+
+
+def test_harmonic_passes(harmonic):
+    pos, cfg = harmonic
+    rep = check(Traj(pos, cfg))
+    assert rep.passed, rep.format_table()
+    q = {r.quantity for r in rep.rows}
+    assert {"variance x", "variance y", "corner frequency x", "diffusion coefficient y (PSD)"} <= q
+    assert rep.start_frame > 0 and "transient" in rep.format_table()
+    d = json.loads(rep.to_json())
+    assert d["passed"] is True and len(d["rows"]) == len(rep.rows)
+
+
+def test_harmonic_fails_on_scaled_positions(harmonic):
+    pos, cfg = harmonic
+    rep = check(Traj(1.3 * pos, cfg))
+    assert not rep.passed
+    assert {"variance x", "variance y", "diffusion coefficient x (PSD)"} <= failed(rep)
+    assert "FAILED: variance x" in rep.format_table()
+
+
+def test_harmonic_fails_on_wrong_temperature(harmonic):
+    pos, cfg = harmonic
+    bad = copy.deepcopy(cfg)
+    bad["medium"]["temperature"] *= 1.1
+    assert {"variance x", "variance y"} <= failed(check(Traj(pos, bad)))
+
+
+def test_harmonic_fails_on_doubled_dt(harmonic):
+    pos, cfg = harmonic
+    bad = copy.deepcopy(cfg)
+    bad["dynamics"]["dt"] *= 2
+    assert {"corner frequency x", "corner frequency y"} <= failed(check(Traj(pos, bad)))
+    t = Traj(pos, cfg)
+    t.time = t.time * 2  # time axis disagreeing with the configuration
+    assert "frame interval" in failed(check(t))
+
+
+def test_free_diffusion_msd_and_moving_trap():
+    # EM free diffusion: increments N(0, 2 D dt) exactly (Einstein 1905)
+    dt, n = 1e-4, 20000
+    D = KT / GAMMA
+    pos = np.cumsum(rng(5).standard_normal((n, 3, 2)) * math.sqrt(2 * D * dt), axis=0)
+    cfg = config([], dims=2, dt=dt, steps=n)
+    rep = check(Traj(pos, cfg))
+    assert rep.passed and sum(r.quantity.startswith("MSD") for r in rep.rows) == 6
+    bad = copy.deepcopy(cfg)
+    bad["particles"]["friction"] = [GAMMA * 0.8] * 2
+    assert any(q.startswith("MSD x") for q in failed(check(Traj(pos, bad))))
+    mv = config([{"type": "harmonic", "stiffness": [1e-5, 1e-5], "center": [0, 0], "velocity": [1e-6, 1e-6],
+                  "amplitude": [0, 0], "frequency": 0.0, "phase": 0.0}], dims=2, dt=dt, steps=n)
+    rep = check(Traj(pos, mv))
+    assert any("moving trap" in note for note in rep.notes)
+    assert not any(r.quantity == "variance x" for r in rep.rows)
+
+
+def test_underdamped_free_velocity_and_msd():
+    # BAOAB free particle: full-step velocity is AR(1), c = exp(-gamma dt/m); q += dt (v_n + v_{n+1})/2
+    m, g, dt, n = 1.0, 1.0, 0.05, 40000
+    c = math.exp(-g * dt / m)
+    gen = rng(6)
+    v = np.empty((n, 4, 1))
+    v[0] = gen.standard_normal((4, 1))
+    noise = gen.standard_normal((n, 4, 1)) * math.sqrt(1 - c * c)
+    for i in range(1, n):
+        v[i] = c * v[i - 1] + noise[i]
+    kT = 1.0
+    vel = v * math.sqrt(kT / m)
+    pos = np.concatenate([np.zeros((1, 4, 1)), np.cumsum(dt * 0.5 * (vel[1:] + vel[:-1]), axis=0)])
+    cfg = config([], dims=1, friction=g, dt=dt, steps=n, regime="underdamped", scheme="baoab",
+                 temperature=kT / 1.380649e-23, mass=m)
+    rep = check(Traj(pos, cfg, vel))
+    assert rep.passed, rep.format_table()
+    assert any(r.quantity == "velocity variance x" for r in rep.rows)
+    assert "velocity variance x" in failed(check(Traj(pos, cfg, 1.3 * vel)))
+
+
+def test_double_well_histogram_and_escape():
+    # LM double well at 5 kT in reduced units: exact MFPT 36.4835 (notes section 7)
+    x = double_well_sim(21, particles=120, steps=60000)
+    pos = x[:, :, None]
+    pot = [{"type": "double-well", "barrier": 5.0 * KT, "separation": 2.0, "axis": 0, "stiffness": [0.0],
+            "center": [0.0]}]
+    cfg = config(pot, dims=1, friction=KT, dt=2e-3, steps=60000, every=10, scheme="leimkuhler-matthews")
+    rep = check(Traj(pos, cfg))
+    assert rep.passed, rep.format_table()
+    q = {r.quantity: r for r in rep.rows}
+    assert q["Boltzmann histogram x"].status == "pass"
+    assert q["escape rate A->B"].status == "pass" and q["escape rate B->A"].status == "pass"
+    assert q["escape rate (Kramers, overdamped)"].status == "info"
+    hot = copy.deepcopy(cfg)
+    hot["medium"]["temperature"] *= 1.25
+    assert "Boltzmann histogram x" in failed(check(Traj(pos, hot)))
+
+
+def test_plots(harmonic, tmp_path):
+    pos, cfg = harmonic
+    t = Traj(pos[:20000], cfg)
+    paths = write_plots(t, check(t), tmp_path)
+    assert {p.split("/")[-1] for p in paths} >= {"msd.png", "psd_x.png"}
+    with pytest.raises(TypeError, match="CheckReport"):
+        write_plots(t, {}, tmp_path)
+
+
+def test_bad_config_is_named():
+    pos, cfg = harmonic_trajectory(2, frames=1000)
+    bad = copy.deepcopy(cfg)
+    bad["medium"]["temperature"] = -3
+    with pytest.raises(ValueError, match="medium.temperature"):
+        check(Traj(pos, bad))
+    t = Traj(pos, cfg)
+    t.config = copy.deepcopy(cfg)
+    del t.config["dynamics"]["dt"]
+    with pytest.raises(KeyError, match="dynamics.dt"):
+        check(t)
+    assert isinstance(check(Traj(pos, cfg)), CheckReport)
