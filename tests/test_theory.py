@@ -190,3 +190,10 @@ def test_bad_inputs_name_the_argument():
         th.mfpt(3.0, 0, 1, 1, 1)
     with pytest.raises(ValueError, match="scheme"):
         th.scheme_position_variance("rk4", 1, 1, 1, 0.1)
+
+
+def test_mfpt_in_si_units_scales_with_xm2_gamma_over_kT():
+    # same well in SI: times scale by x_m^2 gamma/kT (notes section 7, worked example)
+    kT, gamma, L = 4.1e-21, 8.4e-9, 1e-6
+    U = th.quartic_double_well(5 * kT, L)
+    assert th.mfpt(U, -L / 2, L / 2, kT, gamma) == pytest.approx(36.4835 * (L / 2)**2 * gamma / kT, rel=2e-6)
