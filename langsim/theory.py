@@ -523,6 +523,10 @@ def mfpt(potential, x0, x_abs, kT, friction, x_reflect=-math.inf, rtol=1e-10):
         return mfpt(lambda x: potential(-x), -x0, -x_abs, kT, friction, -xr, rtol)
     if not x_reflect < x0:
         raise ValueError(f"x_reflect must lie below x0 = {x0!r}, got {x_reflect!r}")
+    ell = x_abs - x0
+    if abs(ell - 1.0) > 1e-12:  # work in units of |x_abs - x0| so quadrature sees O(1) scales
+        return mfpt(lambda u: potential(x0 + ell * u), 0.0, 1.0, kT, friction * ell * ell,
+                                (x_reflect - x0) / ell, rtol)
     # shift the energies by the lowest value on [x0, x_abs] (and nearby) to avoid overflow
     grid = np.linspace(x0 - (x_abs - x0), x_abs, 2001)
     u_ref = min(float(potential(g)) for g in grid[:: 20]) / kT
