@@ -104,18 +104,18 @@ def advance_overdamped(x, step0, n_steps, dt, kT, friction, averaged_noise,
             for s in range(nb):
                 step = first + s
                 _forces(codes, params, X, step * dt, F, Fx, energy)
-                checksum = 0.0
+                checksum = 0.0  # 0 * x is NaN exactly when x is not finite
                 if averaged_noise:
                     for i in range(n):
                         for a in range(d):
                             X[i, a] += (mobility_dt[a] * F[i, a]
                                         + amp[a] * 0.5 * (buf[s, i, a] + buf[s + 1, i, a]))
-                            checksum += X[i, a]
+                            checksum += 0.0 * X[i, a]
                 else:
                     for i in range(n):
                         for a in range(d):
                             X[i, a] += mobility_dt[a] * F[i, a] + amp[a] * buf[s, i, a]
-                            checksum += X[i, a]
+                            checksum += 0.0 * X[i, a]
                 if not math.isfinite(checksum):
                     status[tile, 0] = 1
                     status[tile, 1] = p0 + _first_nonfinite(X)
@@ -203,10 +203,10 @@ def advance_underdamped(x, v, step0, n_steps, dt, kT, mass, friction,
                                 V[i, a] = (ou_c[j, a] * V[i, a]
                                            + ou_amp[j, a] * buf[s, i, base + a])
                         o_index += 1
-                checksum = 0.0
+                checksum = 0.0  # 0 * x is NaN exactly when x is not finite
                 for i in range(n):
                     for a in range(d):
-                        checksum += X[i, a] + V[i, a]
+                        checksum += 0.0 * (X[i, a] + V[i, a])
                 if not math.isfinite(checksum):
                     bad = _first_nonfinite(X)
                     status[tile, 0] = 1
