@@ -10,6 +10,7 @@ displacements (model-free; see :mod:`langsim.analysis.stats`).
 import math
 
 import numpy as np
+from scipy import fft as sp_fft
 
 from .stats import Estimator, FrameSource, InsufficientDataError, blocking
 
@@ -45,9 +46,9 @@ def msd_fft(x, max_lag=None):
     n = x.shape[0]
     L = _max_lag(n, max_lag)
     x = x - x.mean(axis=0)
-    size = 1 << int(math.ceil(math.log2(2 * n)))
-    f = np.fft.rfft(x, size, axis=0)
-    acf = np.fft.irfft(f * np.conj(f), size, axis=0)[:L + 1]
+    size = sp_fft.next_fast_len(n + L + 1, real=True)  # padding n + L avoids circular wrap for lags <= L
+    f = sp_fft.rfft(x, size, axis=0)
+    acf = sp_fft.irfft(f * np.conj(f), size, axis=0)[:L + 1]
     sq = x * x
     cs = np.concatenate([np.zeros((1, x.shape[1])), np.cumsum(sq, axis=0)])
     m = np.arange(L + 1)
