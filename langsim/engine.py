@@ -3,6 +3,9 @@
 The engine owns step count, time, chunking, checkpoints and status; a scheme
 contributes only its compiled step (:mod:`langsim.kernels.schemes`).
 """
+import os
+import signal
+import threading
 import time as _time
 import warnings
 
@@ -12,7 +15,7 @@ from . import config as _config
 from . import initial, seeding
 from . import potentials as _pot
 from .kernels import schemes as _schemes
-from .trajectory import MemorySink, Status
+from .trajectory import MemorySink, RunComplete, Status
 
 #: Splittings of the underdamped schemes, as (letter, fraction of the step).
 SPLITTINGS = {
@@ -30,6 +33,36 @@ _user_kernels = {}
 
 class RunWarning(UserWarning):
     """A run ended early (numerical blow-up); its frames so far are kept."""
+
+
+class RunInterrupted(KeyboardInterrupt):
+    """SIGINT or SIGTERM stopped a run at a chunk boundary, after a final checkpoint.
+
+    ``trajectory`` holds the frames so far (the sink was finished as incomplete).
+    """
+
+    def __init__(self, signum, trajectory, message):
+        super().__init__(message)
+        self.signum = signum
+        self.trajectory = trajectory
+        self.message = message
+
+
+def _catch_signals(stop):
+    """Turn SIGINT/SIGTERM into a stop request (a second one stops at once); returns a restorer."""
+    if threading.current_thread() is not threading.main_thread():
+        return lambda: None
+
+    def request(signum, frame):
+        if stop:
+            raise KeyboardInterrupt
+        stop.append(signum)
+    previous = {s: signal.signal(s, request) for s in (signal.SIGINT, signal.SIGTERM)}
+
+    def restore():
+        for s, h in previous.items():
+            signal.signal(s, h)
+    return restore
 
 
 def _kernels(user_force):
@@ -120,9 +153,24 @@ class Engine:
 
     # --------------------------------------------------------------------- run
     def run(self):
+        key = seeding.kernel_key(self.spec.seed)
+        stop = []
+        restore = _catch_signals(stop)
+        try:
+            return self._run(key, stop)
+        except (RunInterrupted, RunComplete):
+            raise
+        except BaseException:
+            abort = getattr(self.sink, "abort", None)
+            if abort is not None:
+                abort()
+            raise
+        finally:
+            restore()
+
+    def _run(self, key, stop):
         spec = self.spec
         p, dyn, out = spec.particles, spec.dynamics, spec.output
-        key = seeding.kernel_key(spec.seed)
         resume = self.sink.start(spec)
         if resume is None:
             rng = seeding.initial_rng(spec.seed)
@@ -175,10 +223,16 @@ class Engine:
                 frame += n_frames
                 step += n_steps
                 now = _time.perf_counter()
-                if now - last_checkpoint >= out.checkpoint_every or step == dyn.steps:
+                if now - last_checkpoint >= out.checkpoint_every or step == dyn.steps or stop:
                     self.sink.checkpoint(step, x, v if dyn.regime == "underdamped" else None)
                     last_checkpoint = now
                 self._tick(bar, step)
+                if stop and step < dyn.steps:
+                    name = signal.Signals(stop[0]).name
+                    status = Status(False, f"interrupted by {name} at step {step} of {dyn.steps} "
+                                           f"(t = {step * dyn.dt:.6g} s); checkpoint written",
+                                    step, -1, step * dyn.dt)
+                    break
         finally:
             if bar is not None and hasattr(bar, "close"):
                 bar.close()
@@ -188,7 +242,11 @@ class Engine:
         done = step - steps0
         self.stats = {"wall_time": wall, "steps": done,
                       "ns_per_particle_step": 1e9 * wall / max(1, done * p.count)}
-        return self.sink.finish(status)
+        traj = self.sink.finish(status)
+        traj.stats = self.stats
+        if stop and not status.complete and status.particle < 0:
+            raise RunInterrupted(stop[0], traj, status.message)
+        return traj
 
     def _times(self, frame0, n):
         interval = self.spec.dynamics.dt * self.spec.output.every
@@ -250,12 +308,35 @@ def run(config, out=None, *, progress=True, threads=None, overwrite=False, resum
     """
     spec = _config.load(config)
     path = out if out is not None else spec.output.path
+    if out is None and path is not None and isinstance(config, (str, os.PathLike)):
+        path = os.path.join(os.path.dirname(os.fspath(config)), path)   # next to the config
     if path is None:
         sink = MemorySink()
     else:
-        from .trajectory import HDF5Sink
-        sink = HDF5Sink(path, overwrite=overwrite, resume=resume)
+        from . import trajectory
+        sink = trajectory.HDF5Sink(path, overwrite=overwrite, resume=resume)
+        spec = _resume_seed(config, spec, sink)
     engine = Engine(spec, sink, progress=progress, threads=threads)
-    traj = engine.run()
-    traj.stats = engine.stats
+    try:
+        traj = engine.run()
+    except RunComplete:
+        traj = trajectory.load(path)
+        traj.already_complete = True
+    traj.resumed = getattr(sink, "resumed", False)
     return traj
+
+
+def _resume_seed(config, spec, sink):
+    """On resume, a config without a seed takes the seed recorded in the file."""
+    from . import trajectory
+    if not (sink.resume and os.path.exists(sink.path)):
+        return spec
+    mapping, _ = _config.read(config)
+    if "seed" in mapping:
+        return spec
+    seed = trajectory.stored_seed(sink.path)
+    if seed is None:
+        return spec
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")          # already warned about this config
+        return _config.load({**mapping, "seed": seed})

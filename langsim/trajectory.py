@@ -135,3 +135,509 @@ class MemorySink:
         n = self.n_written
         vel = None if self.velocities is None else self.velocities[:n]
         return Trajectory(self.time[:n], self.positions[:n], vel, self.spec.resolved, status)
+
+
+# --------------------------------------------------------------------- HDF5
+
+#: Value of the root attribute ``format`` and the layout version this module writes.
+FORMAT = "langsim-trajectory"
+FORMAT_VERSION = 1
+#: Target bytes of one stored chunk (frames x particles x dims).
+CHUNK_TARGET_BYTES = 2**20
+#: Largest chunk along the particle axis when one frame is bigger than this.
+CHUNK_MAX_BYTES = 64 * 2**20
+#: Resolved-config keys that do not change the simulated numbers; a resume may differ in them.
+RESUME_IGNORED = (("output", "path"), ("output", "checkpoint_every"), ("output", "compression"))
+#: Values of the root attribute ``state``.
+STATE_RUNNING = "running"          # being written, or the writer was killed
+STATE_INTERRUPTED = "interrupted"  # stopped on request at a checkpoint; resumable
+STATE_COMPLETE = "complete"
+STATE_FAILED = "failed"            # ended early with a numerical blow-up
+UNITS = {"time": "s", "positions": "m", "velocities": "m/s"}
+
+
+class RunComplete(Exception):
+    """Raised by :meth:`HDF5Sink.start` on resume when the file already holds a finished run."""
+
+    def __init__(self, path):
+        super().__init__(f"{path}: the run is already complete; nothing to do")
+        self.path = path
+
+
+def stored_seed(path):
+    """The seed recorded in a trajectory file, or None when it cannot be read."""
+    import h5py
+    try:
+        with h5py.File(path, "r", locking=False) as f:
+            if _attr_str(f.attrs.get("format", "")) != FORMAT:
+                return None
+            return int(f.attrs["seed"])
+    except (OSError, KeyError, ValueError):
+        return None
+
+
+def _config_error(message):
+    from .validation import ConfigError
+    return ConfigError(message)
+
+
+def check_output_path(path, overwrite=False, resume=False):
+    """Refuse an output path that would lose data or cannot be written.
+
+    Raises :class:`~langsim.validation.ConfigError` naming the path and what
+    was expected; nothing is created or changed.
+    """
+    import os
+    path = os.fspath(path)
+    if overwrite and resume:
+        raise _config_error(f"output {path!r}: overwrite and resume both requested; expected one "
+                            "of them (overwrite replaces the file, resume continues it)")
+    if not path.strip():
+        raise _config_error("output path = '': expected a file name such as run.h5")
+    folder = os.path.dirname(os.path.abspath(path))
+    if not os.path.isdir(folder):
+        raise _config_error(f"output {path!r}: folder {folder!r} does not exist; expected an "
+                            "existing folder (create it first)")
+    if not os.access(folder, os.W_OK | os.X_OK):
+        raise _config_error(f"output {path!r}: folder {folder!r} is not writable; expected a "
+                            "folder you can write to")
+    if os.path.isdir(path):
+        raise _config_error(f"output {path!r}: is a folder; expected a file name such as run.h5")
+    if os.path.exists(path):
+        if not os.access(path, os.W_OK):
+            raise _config_error(f"output {path!r}: file exists and is read-only")
+        if not (overwrite or resume):
+            raise _config_error(f"output {path!r}: file exists; expected a new file name, or "
+                                "overwrite (--overwrite) to replace it, or resume (--resume) to "
+                                "continue the run it holds")
+    return path
+
+
+def _json_default(value):
+    if isinstance(value, np.ndarray):
+        return value.tolist()
+    if isinstance(value, (np.floating, np.integer, np.bool_)):
+        return value.item()
+    return repr(value)
+
+
+def config_json(resolved):
+    """The resolved config as JSON (the root attribute ``config``)."""
+    import json
+    return json.dumps(resolved, default=_json_default, sort_keys=True)
+
+
+def config_differences(stored, current, ignore=RESUME_IGNORED):
+    """Dotted keys whose values differ between two resolved configs (JSON-normalised)."""
+    import json
+    a = json.loads(config_json(stored)) if not isinstance(stored, str) else json.loads(stored)
+    b = json.loads(config_json(current))
+    skip = {".".join(k) for k in ignore}
+    out = []
+
+    def walk(x, y, prefix):
+        if prefix in skip:
+            return
+        if isinstance(x, dict) and isinstance(y, dict):
+            for key in sorted(set(x) | set(y)):
+                walk(x.get(key), y.get(key), f"{prefix}.{key}" if prefix else key)
+        elif isinstance(x, list) and isinstance(y, list) and len(x) == len(y) and any(
+                isinstance(v, dict) for v in x + y):
+            for i, (u, v) in enumerate(zip(x, y)):
+                walk(u, v, f"{prefix}[{i}]")
+        elif x != y:
+            out.append((prefix, x, y))
+    walk(a, b, "")
+    return out
+
+
+def _short(value):
+    text = repr(value)
+    return text if len(text) <= 60 else text[:57] + "..."
+
+
+def _chunks(n_particles, dims, itemsize, n_frames):
+    frame = n_particles * dims * itemsize
+    if frame > CHUNK_MAX_BYTES:
+        return (1, max(1, CHUNK_MAX_BYTES // (dims * itemsize)), dims)
+    return (max(1, min(n_frames, CHUNK_TARGET_BYTES // frame)), n_particles, dims)
+
+
+class FrameView:
+    """A stored dataset seen through its first ``n_frames`` frames (read lazily).
+
+    Supports ``shape``, ``dtype``, ``len``, slicing and ``numpy.asarray``;
+    each slice reads only the frames it asks for.
+    """
+
+    def __init__(self, dataset, n_frames):
+        self.dataset = dataset
+        self.n_frames = int(n_frames)
+
+    @property
+    def shape(self):
+        return (self.n_frames,) + tuple(self.dataset.shape[1:])
+
+    @property
+    def dtype(self):
+        return self.dataset.dtype
+
+    @property
+    def ndim(self):
+        return self.dataset.ndim
+
+    @property
+    def units(self):
+        return self.dataset.attrs.get("units")
+
+    def __len__(self):
+        return self.n_frames
+
+    def _frames(self, key):
+        """A range (for slices), an int, or a sorted-or-not index array of frames."""
+        if key is Ellipsis:
+            key = slice(None)
+        if isinstance(key, slice):
+            return range(self.n_frames)[key]
+        if isinstance(key, (int, np.integer)):
+            k = int(key)
+            if not -self.n_frames <= k < self.n_frames:
+                raise IndexError(f"frame {k} out of range for {self.n_frames} frames")
+            return k % self.n_frames
+        arr = np.asarray(key)
+        if arr.dtype == bool:
+            if arr.shape != (self.n_frames,):
+                raise IndexError(f"boolean index of shape {arr.shape}, expected ({self.n_frames},)")
+            return np.flatnonzero(arr)
+        arr = np.where(arr < 0, arr + self.n_frames, arr).astype(np.int64)
+        if np.any((arr < 0) | (arr >= self.n_frames)):
+            raise IndexError(f"frame index out of range for {self.n_frames} frames")
+        return arr
+
+    def __getitem__(self, key):
+        rest = ()
+        if isinstance(key, tuple):
+            key, rest = (key[0], key[1:]) if key else (Ellipsis, ())
+        frames = self._frames(key)
+        ds = self.dataset
+        if isinstance(frames, int):
+            return ds[frames][rest] if rest else ds[frames]
+        if isinstance(frames, range):
+            if len(frames) == 0:
+                data = ds[0:0]
+            elif frames.step > 0:
+                data = ds[frames.start:frames[-1] + 1:frames.step]
+            else:
+                data = ds[frames[-1]:frames[0] + 1:-frames.step][::-1]
+        else:
+            unique, inverse = np.unique(frames, return_inverse=True)
+            block = ds[unique] if unique.size else ds[0:0]
+            data = block[inverse.ravel()]
+        return data[(slice(None),) + rest] if rest else data
+
+    def __array__(self, dtype=None, copy=None):
+        data = self.dataset[:self.n_frames]
+        return data if dtype is None else data.astype(dtype)
+
+    def __repr__(self):
+        return f"<FrameView {self.shape} {self.dtype} of {self.dataset.name!r}>"
+
+
+class HDF5Sink:
+    """Streams frames to an HDF5 file with checkpoints for an exact resume.
+
+    Parameters
+    ----------
+    path : str or path
+    overwrite : bool, default False
+        Replace an existing file.
+    resume : bool, default False
+        Continue the interrupted run in ``path`` (the config must give the same
+        numbers); with no file yet, start it. ``resumed`` says which happened.
+
+    The layout is described in ``docs/file-layout.md``. Frames are written as
+    they come (memory does not grow with the run); every checkpoint flushes the
+    file, so a crash leaves every frame up to the last checkpoint readable.
+    """
+
+    def __init__(self, path, overwrite=False, resume=False):
+        self.path = check_output_path(path, overwrite, resume)
+        self.overwrite = overwrite
+        self.resume = resume
+        self.resumed = False
+        self.already_complete = False
+        self.file = None
+
+    # ---------------------------------------------------------------- start
+    def start(self, spec):
+        import os
+        self.spec = spec
+        if self.resume and os.path.exists(self.path):
+            return self._reopen(spec)
+        self._create(spec)
+        return None
+
+    def _open(self, mode):
+        import h5py
+        try:
+            return h5py.File(self.path, mode)
+        except (OSError, ValueError) as exc:
+            text = str(exc)
+            if "already open" in text:
+                raise _config_error(f"output {self.path!r}: the file is open in this process "
+                                    "(a Trajectory from load or run); expected it closed first "
+                                    "(traj.close())") from None
+            if "lock" in text.lower():
+                raise _config_error(f"output {self.path!r}: the file is open for writing in "
+                                    "another process; expected that run to end first") from None
+            raise _config_error(f"output {self.path!r}: cannot be opened as HDF5 ({text}); "
+                                "expected a langsim trajectory file") from None
+
+    def _create(self, spec):
+        import datetime
+        import h5py
+        from . import __version__
+        p, out = spec.particles, spec.output
+        dtype = np.float32 if out.precision == "single" else np.float64
+        try:
+            f = h5py.File(self.path, "w")
+        except OSError as exc:
+            raise _config_error(f"output {self.path!r}: cannot be created ({exc})") from None
+        self.file = f
+        a = f.attrs
+        a["format"] = FORMAT
+        a["format_version"] = FORMAT_VERSION
+        a["langsim_version"] = __version__
+        a["created"] = datetime.datetime.now(datetime.timezone.utc).isoformat(timespec="seconds")
+        a["config"] = config_json(spec.resolved)
+        a["seed"] = np.int64(spec.seed)
+        a["state"] = STATE_RUNNING
+        a["complete"] = False
+        a["status"] = _status_json(Status(False, "running"))
+        a["n_frames"] = 0
+        kw = {}
+        if out.compression == "gzip":
+            kw = {"compression": "gzip", "compression_opts": 4, "shuffle": True}
+        elif out.compression == "lzf":
+            kw = {"compression": "lzf", "shuffle": True}
+        chunks = _chunks(p.count, p.dimensions, np.dtype(dtype).itemsize, spec.n_frames)
+        time = f.create_dataset("time", shape=(0,), maxshape=(None,), dtype=np.float64,
+                                chunks=(max(1024, chunks[0]),), **kw)
+        time.attrs["units"] = UNITS["time"]
+        names = ["positions"] + (["velocities"] if out.velocities else [])
+        for name in names:
+            ds = f.create_dataset(name, shape=(0, p.count, p.dimensions),
+                                  maxshape=(None, p.count, p.dimensions), dtype=dtype,
+                                  chunks=chunks, **kw)
+            ds.attrs["units"] = UNITS[name]
+        cp = f.create_group("checkpoint")
+        cp.attrs["step"] = -1
+        cp.attrs["n_frames"] = 0
+        cp.attrs["slot"] = -1
+        cp.attrs["wall_time"] = 0.0
+        cp.create_dataset("positions", shape=(2, p.count, p.dimensions), dtype=np.float64)
+        cp["positions"].attrs["units"] = UNITS["positions"]
+        if spec.dynamics.regime == "underdamped":
+            cp.create_dataset("velocities", shape=(2, p.count, p.dimensions), dtype=np.float64)
+            cp["velocities"].attrs["units"] = UNITS["velocities"]
+        f.flush()
+        self.datasets = [f[n] for n in ["time"] + names]
+        self.slot = -1
+        self.n_written = 0
+
+    def _reopen(self, spec):
+        import json
+        import h5py
+        f = self._open("r+")
+        self.file = f
+        try:
+            _check_format(f, self.path)
+            stored = json.loads(f.attrs["config"])
+            diff = config_differences(stored, spec.resolved)
+            if diff:
+                lines = [f"  {k}: file has {_short(a)}, config gives {_short(b)}"
+                         for k, a, b in diff]
+                raise _config_error(
+                    [f"resume {self.path!r}: the config differs from the run in the file in "
+                     f"{len(diff)} key(s) that change the results; expected the same config "
+                     "(or a new output file, or --overwrite):"] + lines)
+            state = _attr_str(f.attrs.get("state", STATE_RUNNING))
+            if state == STATE_COMPLETE:
+                self.already_complete = True
+                raise RunComplete(self.path)
+            if state == STATE_FAILED:
+                status = json.loads(f.attrs["status"])
+                raise _config_error(
+                    f"resume {self.path!r}: the run ended with a numerical blow-up "
+                    f"({status.get('message')}); resuming would repeat it; expected a smaller "
+                    "[dynamics] dt and a fresh run (--overwrite)")
+            cp = f["checkpoint"]
+            slot = int(cp.attrs["slot"])
+            if slot < 0:                    # stopped before frame 0: nothing to keep
+                f.close()
+                self.file = None
+                self._create(spec)
+                return None
+            step, n_frames = int(cp.attrs["step"]), int(cp.attrs["n_frames"])
+            x = cp["positions"][slot]
+            v = cp["velocities"][slot] if "velocities" in cp else None
+            names = ["time", "positions"] + (["velocities"] if "velocities" in f else [])
+            self.datasets = [f[n] for n in names]
+            for ds in self.datasets:          # drop frames written after the checkpoint
+                if ds.shape[0] != n_frames:
+                    ds.resize(n_frames, axis=0)
+            f.attrs["n_frames"] = n_frames
+            f.attrs["state"] = STATE_RUNNING
+            f.attrs["complete"] = False
+            f.attrs["status"] = _status_json(Status(False, "running"))
+            f.flush()
+        except BaseException:
+            f.close()
+            self.file = None
+            raise
+        self.slot = slot
+        self.n_written = n_frames
+        self.resumed = True
+        return ResumeState(step, n_frames, x, v)
+
+    # ---------------------------------------------------------------- write
+    def write(self, frame0, time, positions, velocities):
+        k = len(time)
+        n = frame0 + k
+        arrays = [time, positions] + ([velocities] if len(self.datasets) > 2 else [])
+        for ds, data in zip(self.datasets, arrays):
+            if ds.shape[0] < n:
+                ds.resize(n, axis=0)
+            ds[frame0:n] = data
+        self.n_written = n
+
+    def checkpoint(self, step, positions, velocities):
+        """Store the state after ``step`` in the spare slot, flush, then point at it."""
+        f = self.file
+        cp = f["checkpoint"]
+        new = 1 - self.slot if self.slot >= 0 else 0
+        cp["positions"][new] = positions
+        if velocities is not None and "velocities" in cp:
+            cp["velocities"][new] = velocities
+        f.flush()                          # frames and the new slot are on disk ...
+        cp.attrs["step"] = int(step)
+        cp.attrs["n_frames"] = int(self.n_written)
+        cp.attrs["slot"] = new             # ... before anything points at them
+        f.attrs["n_frames"] = int(self.n_written)
+        f.flush()
+        self.slot = new
+
+    def finish(self, status):
+        f = self.file
+        if f is not None:
+            f.attrs["n_frames"] = int(self.n_written)
+            if status.complete:
+                state = STATE_COMPLETE
+            elif status.step >= 0 and status.particle >= 0:
+                state = STATE_FAILED
+            else:
+                state = STATE_INTERRUPTED
+            f.attrs["status"] = _status_json(status)
+            f.attrs["complete"] = bool(status.complete)
+            f.attrs["state"] = state
+            f.flush()
+            f.close()
+            self.file = None
+        return load(self.path)
+
+    def abort(self):
+        """Close after an error without marking the file; frames to the last checkpoint stay valid."""
+        f, self.file = self.file, None
+        if f is not None:
+            try:
+                f.close()
+            except Exception:   # the disk may be full: the checkpointed state is already on disk
+                pass
+
+
+def _status_json(status):
+    import json
+    return json.dumps(status.to_dict(), default=_json_default)
+
+
+def _attr_str(value):
+    return value.decode() if isinstance(value, bytes) else str(value)
+
+
+def _check_format(f, path):
+    fmt = f.attrs.get("format")
+    if fmt is None or _attr_str(fmt) != FORMAT:
+        raise _config_error(f"{path}: not a langsim trajectory (root attribute format = "
+                            f"{None if fmt is None else _attr_str(fmt)!r}; expected {FORMAT!r})")
+    version = int(f.attrs.get("format_version", -1))
+    if version > FORMAT_VERSION or version < 1:
+        raise _config_error(f"{path}: format_version = {version}; expected 1 to "
+                            f"{FORMAT_VERSION} (written by a newer langsim? upgrade langsim)")
+
+
+def read_state(path):
+    """Root attributes of a trajectory file as a dict, without loading frames."""
+    import json
+    import h5py
+    with h5py.File(path, "r", locking=False) as f:
+        _check_format(f, path)
+        a = f.attrs
+        cp = f["checkpoint"].attrs
+        return {"state": _attr_str(a.get("state", STATE_RUNNING)),
+                "n_frames": int(a["n_frames"]), "config": json.loads(a["config"]),
+                "status": json.loads(a["status"]), "created": _attr_str(a["created"]),
+                "langsim_version": _attr_str(a["langsim_version"]),
+                "checkpoint_step": int(cp["step"]), "checkpoint_frames": int(cp["n_frames"])}
+
+
+def load(path):
+    """Open a trajectory file read-only.
+
+    Returns
+    -------
+    Trajectory
+        ``time`` in memory; ``positions`` and ``velocities`` as :class:`FrameView`
+        objects that read frames lazily, trimmed to the frames known to be valid.
+        Close it (or use ``with``) when done.
+
+    Raises
+    ------
+    ConfigError
+        When the file is missing, not HDF5, or not a langsim trajectory.
+    """
+    import json
+    import os
+    import h5py
+    path = os.fspath(path)
+    if not os.path.exists(path):
+        raise _config_error(f"{path}: no such file; expected a trajectory file written by "
+                            "langsim run")
+    if os.path.isdir(path):
+        raise _config_error(f"{path}: is a folder; expected a trajectory file (.h5)")
+    try:
+        f = h5py.File(path, "r", locking=False)
+    except OSError as exc:
+        raise _config_error(f"{path}: not readable as HDF5 ({exc}); expected a trajectory "
+                            "file written by langsim run") from None
+    try:
+        _check_format(f, path)
+        n = int(f.attrs["n_frames"])
+        state = _attr_str(f.attrs.get("state", STATE_RUNNING))
+        if state == STATE_RUNNING:      # killed writer: trust only the last checkpoint
+            n = min(n, int(f["checkpoint"].attrs["n_frames"]))
+        s = json.loads(f.attrs["status"])
+        if state == STATE_RUNNING:
+            s = {"complete": False, "message": "not finished: the writer is still running or was "
+                 "killed; frames up to the last checkpoint are valid"}
+        status = Status(**{k: (float("nan") if (k == "time" and v is None) else v)
+                           for k, v in s.items() if k in Status.__dataclass_fields__})
+        config = json.loads(f.attrs["config"])
+        time = f["time"][:n]
+        pos = FrameView(f["positions"], n)
+        vel = FrameView(f["velocities"], n) if "velocities" in f else None
+    except BaseException:
+        f.close()
+        raise
+    traj = Trajectory(time, pos, vel, config, status, path=path, file=f)
+    traj.state = state
+    return traj
