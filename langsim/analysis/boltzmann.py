@@ -15,7 +15,7 @@ import math
 import numpy as np
 from scipy import integrate, optimize, stats
 
-from .stats import Estimator, FrameSource, InsufficientDataError, integrated_autocorr_time
+from .stats import Estimator, InsufficientDataError, integrated_autocorr_time, single_axis
 
 __all__ = ["boltzmann_weights", "equal_probability_edges", "boltzmann_test", "BoltzmannTest"]
 
@@ -162,10 +162,7 @@ class BoltzmannTest(Estimator):
         self.start = start
 
     def fit(self, positions):
-        src = FrameSource(positions, axis=self.axis)
-        if src.vector and src.n_dims > 1:
-            raise ValueError(f"axis must be given for positions with {src.n_dims} dims")
-        start = src.check_start(self.start)
+        src, start = single_axis(positions, self.axis, self.start)
         x = np.concatenate([blk[:, :, 0] for _, blk in src.chunks(start)])
         r = boltzmann_test(x, self.potential, self.kT, self.support, self.n_bins, self.n_blocks)
         for k, v in r.items():

@@ -20,7 +20,7 @@ import math
 import numpy as np
 from scipy import stats
 
-from .stats import Estimator, FrameSource
+from .stats import Estimator, single_axis
 
 __all__ = ["dwell_times", "rate_from_events", "EscapeRate"]
 
@@ -103,10 +103,7 @@ class EscapeRate(Estimator):
     def fit(self, positions):
         if not (isinstance(self.dt, (int, float)) and self.dt > 0):
             raise ValueError(f"dt must be a positive number (s), got {self.dt!r}")
-        src = FrameSource(positions, axis=self.axis)
-        if src.vector and src.n_dims > 1:
-            raise ValueError(f"axis must be given for positions with {src.n_dims} dims")
-        start = src.check_start(self.start)
+        src, start = single_axis(positions, self.axis, self.start)
         da, db, ea, eb = [], [], 0, 0
         for p in range(src.n_particles):
             r = dwell_times(src.column(p, start)[:, 0], self.lower, self.upper)

@@ -12,7 +12,7 @@ import math
 import numpy as np
 from scipy import fft as sp_fft
 
-from .stats import Estimator, FrameSource, InsufficientDataError, blocking
+from .stats import Estimator, FrameSource, InsufficientDataError, blocking, single_axis
 
 __all__ = ["msd_fft", "msd_direct", "msd_at_lags", "mean_msd", "velocity_autocorrelation",
            "lag_autocorrelation", "MSD", "RelaxationStiffness"]
@@ -228,10 +228,7 @@ class RelaxationStiffness(Estimator):
             v = getattr(self, name)
             if not (isinstance(v, (int, float)) and v > 0):
                 raise ValueError(f"{name} must be a positive number, got {v!r}")
-        src = FrameSource(positions, axis=self.axis)
-        if src.vector and src.n_dims > 1:
-            raise ValueError(f"axis must be given for positions with {src.n_dims} dims")
-        start = src.check_start(self.start)
+        src, start = single_axis(positions, self.axis, self.start)
         x = np.concatenate([blk[:, :, 0] for _, blk in src.chunks(start)])
         lag = self.lag
         if lag is None:

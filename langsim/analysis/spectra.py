@@ -21,7 +21,7 @@ import numpy as np
 from scipy import optimize
 
 from .. import theory
-from .stats import Estimator, FrameSource
+from .stats import Estimator, FrameSource, single_axis
 
 __all__ = ["blocked_periodogram", "fit_psd_model", "LorentzianFit", "OscillatorFit", "MODELS"]
 
@@ -41,10 +41,7 @@ def blocked_periodogram(positions, dt, segment_length, start=0, axis=None):
     P : (N//2,) m^2/Hz, mean two-sided periodogram
     count : int, number of periodograms averaged (segments x particles)
     """
-    src = FrameSource(positions, axis=axis)
-    if src.vector and src.n_dims > 1:
-        raise ValueError(f"axis must be given for positions with {src.n_dims} dims")
-    start = src.check_start(start)
+    src, start = single_axis(positions, axis, start)
     dt = float(dt)
     if not dt > 0:
         raise ValueError(f"dt must be > 0 (s), got {dt!r}")

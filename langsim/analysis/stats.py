@@ -159,6 +159,14 @@ class FrameSource:
         return start
 
 
+def single_axis(positions, axis, start, name="positions"):
+    """FrameSource restricted to one Cartesian axis, and the checked start frame."""
+    src = FrameSource(positions, axis=axis, name=name)
+    if src.vector and src.n_dims > 1:
+        raise ValueError(f"axis must be given for {name} with {src.n_dims} dims")
+    return src, src.check_start(start)
+
+
 def autocovariance(x, max_lag=None):
     """Autocovariance of a 1D series (mean removed, biased 1/N normalisation), by FFT."""
     x = np.asarray(x, dtype=float)
