@@ -27,6 +27,8 @@ _LETTER_CODES = {"A": _schemes.LETTER_A, "B": _schemes.LETTER_B, "O": _schemes.L
 #: Chunk limits: output buffer bytes and particle-steps per kernel call.
 CHUNK_BYTES = 32 * 2**20
 CHUNK_PARTICLE_STEPS = 20_000_000
+#: ``every`` of a kernel call that records nothing (burn-in): no step reaches it.
+NO_RECORD = 2**62
 
 _user_kernels = {}
 
@@ -144,7 +146,7 @@ class Engine:
         chunk = max(1, CHUNK_PARTICLE_STEPS // spec.particles.count)
         while done < n_steps:
             k = min(chunk, n_steps - done)
-            fail = self._advance(x, v, done, k, key, codes, params, k + 1, empty, empty)
+            fail = self._advance(x, v, done, k, key, codes, params, NO_RECORD, empty, empty)
             if fail is not None:
                 raise FloatingPointError(
                     f"burn-in blew up: particle {fail[0]} non-finite at burn-in step {fail[1]}; "
@@ -269,8 +271,8 @@ class Engine:
         if callable(bar) and not hasattr(bar, "update"):
             bar(step, self.spec.dynamics.steps)
             return
-        bar.update(step - bar.n)
         bar.set_postfix({"t": f"{step * self.spec.dynamics.dt:.4g} s"}, refresh=False)
+        bar.update(step - bar.n)
 
 
 def run(config, out=None, *, progress=True, threads=None, overwrite=False, resume=False):
