@@ -56,6 +56,25 @@ def _forces(codes, params, X, t, F, Fx, energy):
                 F[i, a] += Fx[a]
 
 
+_EXP_MASK = np.uint64(0x7FF)
+_S52 = np.uint64(52)
+_S11 = np.uint64(11)
+_ONE = np.uint64(1)
+
+
+@njit(inline="always", cache=True)
+def _any_nonfinite(bits):
+    """True when a float64 whose raw bits are in ``bits`` is inf or NaN.
+
+    Integer test of the exponent field (all ones), OR-reduced so that it
+    vectorises; exact, unlike a floating-point checksum.
+    """
+    flag = np.uint64(0)
+    for j in range(bits.shape[0]):
+        flag |= (((bits[j] >> _S52) & _EXP_MASK) + _ONE) >> _S11
+    return flag != 0
+
+
 @njit(inline="always", cache=True)
 def _first_nonfinite(X):
     for i in range(X.shape[0]):
@@ -63,6 +82,17 @@ def _first_nonfinite(X):
             if not math.isfinite(X[i, a]):
                 return i
     return -1
+
+
+@njit(inline="always", cache=True)
+def _per_element(per_axis, n):
+    """Repeat a per-axis coefficient for the n*d elements of a flat (n, d) tile."""
+    d = per_axis.shape[0]
+    out = np.empty(n * d)
+    for i in range(n):
+        for a in range(d):
+            out[i * d + a] = per_axis[a]
+    return out
 
 
 @njit(parallel=True, cache=True)
@@ -83,15 +113,24 @@ def advance_overdamped(x, step0, n_steps, dt, kT, friction, averaged_noise,
     for a in range(d):
         mobility_dt[a] = dt / friction[a]
         amp[a] = math.sqrt(2.0 * kT * dt / friction[a])
+        if averaged_noise:
+            amp[a] *= 0.5
     extra = 1 if averaged_noise else 0
     for tile in prange(n_tiles):
         p0 = tile * TILE
         n = min(TILE, n_particles - p0)
+        nd = n * d
         X = x[p0:p0 + n].copy()
         F = np.empty((n, d))
         Fx = np.empty(d)
         energy = np.empty(n)
         buf = np.empty((BLOCK + 1, n, d))
+        xf = X.reshape(nd)
+        ff = F.reshape(nd)
+        bits = xf.view(np.uint64)
+        noise = buf.reshape((BLOCK + 1, nd))
+        mob = _per_element(mobility_dt, n)
+        scale = _per_element(amp, n)
         status[tile, 0] = 0
         status[tile, 1] = -1
         status[tile, 2] = -1
@@ -104,19 +143,15 @@ def advance_overdamped(x, step0, n_steps, dt, kT, friction, averaged_noise,
             for s in range(nb):
                 step = first + s
                 _forces(codes, params, X, step * dt, F, Fx, energy)
-                checksum = 0.0  # 0 * x is NaN exactly when x is not finite
+                xi = noise[s]
                 if averaged_noise:
-                    for i in range(n):
-                        for a in range(d):
-                            X[i, a] += (mobility_dt[a] * F[i, a]
-                                        + amp[a] * 0.5 * (buf[s, i, a] + buf[s + 1, i, a]))
-                            checksum += 0.0 * X[i, a]
+                    xi1 = noise[s + 1]
+                    for j in range(nd):
+                        xf[j] += mob[j] * ff[j] + scale[j] * (xi[j] + xi1[j])
                 else:
-                    for i in range(n):
-                        for a in range(d):
-                            X[i, a] += mobility_dt[a] * F[i, a] + amp[a] * buf[s, i, a]
-                            checksum += 0.0 * X[i, a]
-                if not math.isfinite(checksum):
+                    for j in range(nd):
+                        xf[j] += mob[j] * ff[j] + scale[j] * xi[j]
+                if _any_nonfinite(bits):
                     status[tile, 0] = 1
                     status[tile, 1] = p0 + _first_nonfinite(X)
                     status[tile, 2] = step + 1
@@ -139,7 +174,8 @@ def advance_underdamped(x, v, step0, n_steps, dt, kT, mass, friction,
 
     ``letters`` (int64) and ``fractions`` (float64) spell the splitting, e.g.
     BAOAB = (B, A, O, A, B) with (0.5, 0.5, 1, 0.5, 0.5). The O letter is the
-    exact update v <- c v + sqrt((1 - c^2) kT/m) xi with c = exp(-gamma h/m).
+    exact update v <- c v + sqrt((1 - c^2) kT/m) xi with c = exp(-gamma h/m);
+    each O letter of a step draws its own variates (components o*d .. o*d+d-1).
     Recorded velocities are those at the end of the full step.
     """
     n_particles, d = x.shape
@@ -160,12 +196,31 @@ def advance_underdamped(x, v, step0, n_steps, dt, kT, mass, friction,
     for tile in prange(n_tiles):
         p0 = tile * TILE
         n = min(TILE, n_particles - p0)
+        nd = n * d
         X = x[p0:p0 + n].copy()
         V = v[p0:p0 + n].copy()
         F = np.empty((n, d))
         Fx = np.empty(d)
         energy = np.empty(n)
         buf = np.empty((BLOCK, n, max(n_comp, 1)))
+        xf = X.reshape(nd)
+        vf = V.reshape(nd)
+        ff = F.reshape(nd)
+        xbits = xf.view(np.uint64)
+        vbits = vf.view(np.uint64)
+        # per-element O coefficients, and where each element's variate sits in
+        # a flat noise row (index i*n_comp + o*d + a)
+        c_el = np.empty((n_letters, nd))
+        amp_el = np.empty((n_letters, nd))
+        where = np.empty((max(n_o, 1), nd), dtype=np.int64)
+        for j in range(n_letters):
+            c_el[j] = _per_element(ou_c[j], n)
+            amp_el[j] = _per_element(ou_amp[j], n)
+        for o in range(n_o):
+            for i in range(n):
+                for a in range(d):
+                    where[o, i * d + a] = i * n_comp + o * d + a
+        noise = buf.reshape((BLOCK, n * max(n_comp, 1)))
         status[tile, 0] = 0
         status[tile, 1] = -1
         status[tile, 2] = -1
@@ -180,34 +235,34 @@ def advance_underdamped(x, v, step0, n_steps, dt, kT, mass, friction,
                 step = first + s
                 elapsed = 0.0
                 o_index = 0
+                xi = noise[s]
                 for j in range(n_letters):
                     h = fractions[j] * dt
                     letter = letters[j]
                     if letter == LETTER_A:
-                        for i in range(n):
-                            for a in range(d):
-                                X[i, a] += h * V[i, a]
+                        for e in range(nd):
+                            xf[e] += h * vf[e]
                         elapsed += fractions[j]
                         force_valid = False
                     elif letter == LETTER_B:
                         if not force_valid:
                             _forces(codes, params, X, (step + elapsed) * dt, F, Fx, energy)
                             force_valid = True
-                        for i in range(n):
-                            for a in range(d):
-                                V[i, a] += h * F[i, a] / mass
+                        kick = h / mass
+                        for e in range(nd):
+                            vf[e] += kick * ff[e]
                     else:
-                        base = o_index * d
-                        for i in range(n):
-                            for a in range(d):
-                                V[i, a] = (ou_c[j, a] * V[i, a]
-                                           + ou_amp[j, a] * buf[s, i, base + a])
+                        cj = c_el[j]
+                        aj = amp_el[j]
+                        if n_o == 1:
+                            for e in range(nd):
+                                vf[e] = cj[e] * vf[e] + aj[e] * xi[e]
+                        else:
+                            wo = where[o_index]
+                            for e in range(nd):
+                                vf[e] = cj[e] * vf[e] + aj[e] * xi[wo[e]]
                         o_index += 1
-                checksum = 0.0  # 0 * x is NaN exactly when x is not finite
-                for i in range(n):
-                    for a in range(d):
-                        checksum += 0.0 * (X[i, a] + V[i, a])
-                if not math.isfinite(checksum):
+                if _any_nonfinite(xbits) or _any_nonfinite(vbits):
                     bad = _first_nonfinite(X)
                     status[tile, 0] = 1
                     status[tile, 1] = p0 + (bad if bad >= 0 else _first_nonfinite(V))
