@@ -380,7 +380,13 @@ class HDF5Sink:
     def _open(self, mode):
         import h5py
         try:
-            return h5py.File(self.path, mode)
+            with h5py.File(self.path, "r", locking=False) as f:
+                ds = f["positions"]
+                cache = _cache_bytes(ds.chunks, ds.dtype)
+        except (OSError, KeyError, TypeError, ValueError):
+            cache = None
+        try:
+            return h5py.File(self.path, mode, rdcc_w0=1.0, rdcc_nbytes=cache)
         except (OSError, ValueError) as exc:
             text = str(exc)
             if "already open" in text:
@@ -399,10 +405,13 @@ class HDF5Sink:
         from . import __version__
         p, out = spec.particles, spec.output
         dtype = np.float32 if out.precision == "single" else np.float64
+        chunks = _chunks(p.count, p.dimensions, np.dtype(dtype).itemsize, spec.n_frames)
         try:
-            f = h5py.File(self.path, "w")
+            f = h5py.File(self.path, "w", fs_strategy="none", rdcc_w0=1.0,
+                          rdcc_nbytes=_cache_bytes(chunks, dtype))
         except OSError as exc:
             raise _config_error(f"output {self.path!r}: cannot be created ({exc})") from None
+        _metadata_on_flush_only(f)
         self.file = f
         a = f.attrs
         a["format"] = FORMAT
@@ -420,7 +429,6 @@ class HDF5Sink:
             kw = {"compression": "gzip", "compression_opts": 4, "shuffle": True}
         elif out.compression == "lzf":
             kw = {"compression": "lzf", "shuffle": True}
-        chunks = _chunks(p.count, p.dimensions, np.dtype(dtype).itemsize, spec.n_frames)
         time = f.create_dataset("time", shape=(0,), maxshape=(None,), dtype=np.float64,
                                 chunks=(max(1024, chunks[0]),), **kw)
         time.attrs["units"] = UNITS["time"]
@@ -442,6 +450,7 @@ class HDF5Sink:
             cp["velocities"].attrs["units"] = UNITS["velocities"]
         f.flush()
         self.datasets = [f[n] for n in ["time"] + names]
+        self.headroom = _headroom(self.datasets, f)
         self.slot = -1
         self.n_written = 0
 
@@ -451,6 +460,7 @@ class HDF5Sink:
         f = self._open("r+")
         self.file = f
         try:
+            _metadata_on_flush_only(f)
             _check_format(f, self.path)
             stored = json.loads(f.attrs["config"])
             diff = config_differences(stored, spec.resolved)
@@ -483,6 +493,7 @@ class HDF5Sink:
             v = cp["velocities"][slot] if "velocities" in cp else None
             names = ["time", "positions"] + (["velocities"] if "velocities" in f else [])
             self.datasets = [f[n] for n in names]
+            self.headroom = _headroom(self.datasets, f)
             for ds in self.datasets:          # drop frames written after the checkpoint
                 if ds.shape[0] != n_frames:
                     ds.resize(n_frames, axis=0)
@@ -505,27 +516,77 @@ class HDF5Sink:
         k = len(time)
         n = frame0 + k
         arrays = [time, positions] + ([velocities] if len(self.datasets) > 2 else [])
-        for ds, data in zip(self.datasets, arrays):
-            if ds.shape[0] < n:
-                ds.resize(n, axis=0)
-            ds[frame0:n] = data
+        try:
+            for ds, data in zip(self.datasets, arrays):
+                if ds.shape[0] < n:
+                    ds.resize(n, axis=0)
+                ds[frame0:n] = data
+        except (OSError, RuntimeError) as exc:
+            raise self._failed(exc) from None
         self.n_written = n
 
     def checkpoint(self, step, positions, velocities):
         """Store the state after ``step`` in the spare slot, flush, then point at it."""
         f = self.file
-        cp = f["checkpoint"]
-        new = 1 - self.slot if self.slot >= 0 else 0
-        cp["positions"][new] = positions
-        if velocities is not None and "velocities" in cp:
-            cp["velocities"][new] = velocities
-        f.flush()                          # frames and the new slot are on disk ...
-        cp.attrs["step"] = int(step)
-        cp.attrs["n_frames"] = int(self.n_written)
-        cp.attrs["slot"] = new             # ... before anything points at them
-        f.attrs["n_frames"] = int(self.n_written)
-        f.flush()
+        try:
+            self._ensure_room()
+            cp = f["checkpoint"]
+            new = 1 - self.slot if self.slot >= 0 else 0
+            cp["positions"][new] = positions
+            if velocities is not None and "velocities" in cp:
+                cp["velocities"][new] = velocities
+            f.flush()                          # frames and the new slot are on disk ...
+            cp.attrs["step"] = int(step)
+            cp.attrs["n_frames"] = int(self.n_written)
+            cp.attrs["slot"] = new             # ... before anything points at them
+            f.attrs["n_frames"] = int(self.n_written)
+            f.flush()
+        except (OSError, RuntimeError) as exc:
+            raise self._failed(exc) from None
         self.slot = new
+
+    def _ensure_room(self):
+        """Refuse to flush when the flush might not fit: a half-written flush can break the file."""
+        import errno as _errno
+        import os
+        import resource
+        size = self.file.id.get_filesize()
+        limit = resource.getrlimit(resource.RLIMIT_FSIZE)[0]
+        if limit != resource.RLIM_INFINITY and size + self.headroom > limit:
+            raise OSError(_errno.EFBIG, f"{os.strerror(_errno.EFBIG)} (a checkpoint needs room for "
+                          f"the file to reach {(size + self.headroom) / 1e6:.3g} MB; the file size "
+                          f"limit of this process is {limit / 1e6:.3g} MB)")
+        st = os.statvfs(os.path.dirname(os.path.abspath(self.path)))
+        if st.f_bavail * st.f_frsize < self.headroom:
+            raise OSError(_errno.ENOSPC, f"{os.strerror(_errno.ENOSPC)} (a checkpoint needs "
+                          f"{self.headroom / 1e6:.3g} MB free)")
+
+    def _failed(self, exc):
+        """Freeze the file as it is on disk (valid to the last checkpoint); an OSError to raise.
+
+        After a failed write the HDF5 library would write its cached metadata on
+        close, half of which may not fit either. The descriptor is pointed at a
+        read-only /dev/null instead, so nothing more reaches the file.
+        """
+        import errno as _errno
+        import os
+        import re
+        text = str(exc)
+        match = re.search(r"errno = (\d+)", text)
+        code = int(match.group(1)) if match else getattr(exc, "errno", None) or _errno.EIO
+        f, self.file = self.file, None
+        if f is not None:
+            try:
+                fd = f.id.get_vfd_handle()
+                null = os.open(os.devnull, os.O_RDWR)
+                os.dup2(null, fd)
+                os.close(null)
+            except (OSError, RuntimeError, ValueError, TypeError):
+                pass
+            _FROZEN.append(f)          # never closed by us: closing would write again
+        if match or not isinstance(exc, OSError) or not exc.strerror:   # HDF5's long text
+            return OSError(code, os.strerror(code), self.path)
+        return OSError(code, exc.strerror, self.path)
 
     def finish(self, status):
         f = self.file
@@ -553,6 +614,36 @@ class HDF5Sink:
                 f.close()
             except Exception:   # the disk may be full: the checkpointed state is already on disk
                 pass
+
+
+def _metadata_on_flush_only(f):
+    """Keep HDF5 metadata in memory between flushes, so the file on disk changes its
+    structure only at a checkpoint (together with no reuse of freed space, set at creation)."""
+    try:
+        c = f.id.get_mdc_config()
+        c.evictions_enabled = False
+        c.incr_mode, c.decr_mode, c.flash_incr_mode = 0, 0, 0
+        f.id.set_mdc_config(c)
+    except (AttributeError, RuntimeError, ValueError):   # an h5py without it: defaults
+        pass
+
+
+def _cache_bytes(chunks, dtype):
+    """Chunk-cache size per dataset: two stored chunks, at least 1 MiB."""
+    if chunks is None:
+        return 2**20
+    return max(2**20, 2 * int(np.prod(chunks)) * np.dtype(dtype).itemsize)
+
+
+def _headroom(datasets, f):
+    """Bytes a checkpoint's flush may add: every dataset's chunk cache, full of data not yet
+    on disk, plus metadata."""
+    cache = f.id.get_access_plist().get_cache()[2]
+    return 2**19 + len(datasets) * int(cache)
+
+
+#: Files frozen after a write error (kept referenced so that nothing flushes them).
+_FROZEN = []
 
 
 def _status_json(status):
