@@ -90,6 +90,8 @@ _C2, _C4, _C6, _C8, _C10, _C12, _C14, _C16, _C18 = (
 
 #: Counter word 3 of the dynamics noise. Other streams are reserved.
 STREAM_DYNAMICS = 0
+#: Below this many particles a tile's noise is vectorised over steps.
+SMALL_TILE = 4
 
 
 @intrinsic
@@ -233,14 +235,35 @@ def fill_tile(k0, k1, p0, n, n_comp, step0, nb, buf):
     The four variates of one Philox block are made for all ``n`` particles in
     one branch-free loop (which LLVM vectorises), into a scratch row per lane,
     then copied to the steps of the block that lie in the requested range.
+    Tiles of fewer than ``SMALL_TILE`` particles (a single long trajectory)
+    vectorise over the blocks of steps instead; both orders evaluate the same
+    IEEE operations, so the variates are the same bits.
     Not inlined: it keeps its own ``error_model="numpy"`` (no zero-division
     branch in the log), whatever the caller's options.
     """
-    tmp = np.empty((4, n))
     stream = np.uint64(STREAM_DYNAMICS)
     pu = np.uint64(p0)
     q_first = step0 >> 2
     q_end = (step0 + nb + 3) >> 2
+    if n < SMALL_TILE:
+        n_q = q_end - q_first
+        blocks = np.empty((n_q, 4))
+        flat = blocks.reshape(4 * n_q)
+        offset = step0 - 4 * q_first
+        for c in range(n_comp):
+            cu = np.uint64(c)
+            for i in range(n):
+                pi = pu + np.uint64(i)
+                for jq in range(n_q):
+                    z0, z1, z2, z3 = normals4(k0, k1, np.uint64(q_first + jq), pi, cu, stream)
+                    blocks[jq, 0] = z0
+                    blocks[jq, 1] = z1
+                    blocks[jq, 2] = z2
+                    blocks[jq, 3] = z3
+                for s in range(nb):
+                    buf[s, i, c] = flat[offset + s]
+        return
+    tmp = np.empty((4, n))
     for c in range(n_comp):
         cu = np.uint64(c)
         for q in range(q_first, q_end):
