@@ -234,7 +234,7 @@ def _report_run(args, traj):
 def _fmt(value):
     if isinstance(value, float):
         return f"{value:.6g}"
-    if isinstance(value, list) and len(value) > 1 and all(v == value[0] for v in value):
+    if isinstance(value, list) and value and all(v == value[0] for v in value):
         return _fmt(value[0])
     if isinstance(value, list):
         return "[" + ", ".join(_fmt(v) for v in value[:6]) + (", ..." if len(value) > 6 else "") + "]"
@@ -269,8 +269,8 @@ def cmd_info(args):
                                               if par.get("radius") is not None else "")
             + (f", mass {_fmt(par['mass'])} kg" if par.get("mass") is not None else ""),
             f"medium       temperature {med['temperature']:.6g} K"
-            + (f", viscosity {med['viscosity']:.6g} Pa s" if med.get("viscosity") is not None
-               else ""),
+            + (f", viscosity {med['viscosity']:.6g} Pa s"
+               if med.get("viscosity") is not None and par.get("radius") is not None else ""),
         ]
         terms = cfg.get("potential") or []
         if not terms:

@@ -206,3 +206,22 @@ def test_warning_is_one_line_and_output_path_from_config(tmp_path):
     lines = [line for line in proc.stderr.splitlines() if line.startswith("warning: ")]
     assert len(lines) == 1 and "[dynamics] dt = 2e-05" in lines[0], proc.stderr
     assert (sub / "out.h5").exists()         # [output] path is relative to the config's folder
+
+
+def test_blow_up_exits_1_keeps_frames_and_cannot_resume(tmp_path):
+    # Euler-Maruyama is unstable for stiffness*dt/friction > 2; here it is 3 (allowed on purpose).
+    config = write(tmp_path / "blow.toml", SMALL.replace("dt = 1e-4", "dt = 1e-4\nallow_unstable = true")
+                   .replace("stiffness = 1e-6", "stiffness = 2.7e-4"))
+    out = tmp_path / "blow.h5"
+    proc = langsim_cli("run", config, "-o", out, "--quiet")
+    assert proc.returncode == 1, proc.stderr
+    assert "ended early" in proc.stderr and "non-finite position of particle" in proc.stderr
+    assert "Traceback" not in proc.stderr
+    with h5py.File(out, "r") as f:
+        assert f.attrs["state"] == "failed" and not f.attrs["complete"]
+        n = int(f.attrs["n_frames"])
+        assert 1 <= n < 20001 and np.all(np.isfinite(f["positions"][:n]))
+    proc = langsim_cli("run", config, "-o", out, "--resume")
+    assert_usage_error(proc, "numerical blow-up", "dt")
+    info = langsim_cli("info", out)
+    assert info.returncode == 0 and "ended early" in info.stdout
