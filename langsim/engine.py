@@ -198,7 +198,7 @@ class Engine:
                                       CHUNK_PARTICLE_STEPS // (p.count * out.every)))
         status = Status(True)
         wall0 = _time.perf_counter()
-        last_checkpoint = wall0
+        last_checkpoint, checkpointed = wall0, step
         steps0 = step
         try:
             while step < dyn.steps:
@@ -227,9 +227,11 @@ class Engine:
                 now = _time.perf_counter()
                 if now - last_checkpoint >= out.checkpoint_every or step == dyn.steps or stop:
                     self.sink.checkpoint(step, x, v if dyn.regime == "underdamped" else None)
-                    last_checkpoint = now
+                    last_checkpoint, checkpointed = now, step
                 self._tick(bar, step)
                 if stop and step < dyn.steps:
+                    if checkpointed != step:         # the signal came after the checkpoint test
+                        self.sink.checkpoint(step, x, v if dyn.regime == "underdamped" else None)
                     name = signal.Signals(stop[0]).name
                     status = Status(False, f"interrupted by {name} at step {step} of {dyn.steps} "
                                            f"(t = {step * dyn.dt:.6g} s); checkpoint written",

@@ -430,7 +430,7 @@ class HDF5Sink:
         elif out.compression == "lzf":
             kw = {"compression": "lzf", "shuffle": True}
         time = f.create_dataset("time", shape=(0,), maxshape=(None,), dtype=np.float64,
-                                chunks=(max(1024, chunks[0]),), **kw)
+                                chunks=(max(1024, chunks[0]),))
         time.attrs["units"] = UNITS["time"]
         names = ["positions"] + (["velocities"] if out.velocities else [])
         for name in names:
@@ -448,11 +448,27 @@ class HDF5Sink:
         if spec.dynamics.regime == "underdamped":
             cp.create_dataset("velocities", shape=(2, p.count, p.dimensions), dtype=np.float64)
             cp["velocities"].attrs["units"] = UNITS["velocities"]
+        if kw:          # frames of an unfinished compressed chunk wait here (see _buffer)
+            for name in names:
+                cp.create_dataset("tail_" + name, shape=(2,) + chunks, dtype=dtype)
+        cp.attrs["stored_frames"] = 0
+        cp.attrs["tail_frames"] = 0
         f.flush()
-        self.datasets = [f[n] for n in ["time"] + names]
-        self.headroom = _headroom(self.datasets, f)
+        self._setup(f, names)
         self.slot = -1
         self.n_written = 0
+        self.n_stored = 0
+
+    def _setup(self, f, names):
+        self.datasets = [f[n] for n in ["time"] + names]
+        self.data = self.datasets[1:]
+        self.headroom = _headroom(self.datasets, f)
+        first = self.data[0]
+        self.buffered = first.compression is not None
+        self.frame_chunk = first.chunks[0]
+        self.tail = [np.empty((self.frame_chunk,) + first.shape[1:], dtype=first.dtype)
+                     for _ in self.data] if self.buffered else []
+        self.tail_n = 0
 
     def _reopen(self, spec):
         import json
@@ -489,15 +505,18 @@ class HDF5Sink:
                 self._create(spec)
                 return None
             step, n_frames = int(cp.attrs["step"]), int(cp.attrs["n_frames"])
+            stored = int(cp.attrs.get("stored_frames", n_frames))
             x = cp["positions"][slot]
             v = cp["velocities"][slot] if "velocities" in cp else None
-            names = ["time", "positions"] + (["velocities"] if "velocities" in f else [])
-            self.datasets = [f[n] for n in names]
-            self.headroom = _headroom(self.datasets, f)
-            for ds in self.datasets:          # drop frames written after the checkpoint
-                if ds.shape[0] != n_frames:
-                    ds.resize(n_frames, axis=0)
-            f.attrs["n_frames"] = n_frames
+            self._setup(f, ["positions"] + (["velocities"] if "velocities" in f else []))
+            for ds, n in zip(self.datasets, [n_frames] + [stored] * len(self.data)):
+                if ds.shape[0] != n:           # drop frames written after the checkpoint
+                    ds.resize(n, axis=0)
+            if self.buffered:
+                self.tail_n = int(cp.attrs.get("tail_frames", 0))
+                for t, ds in zip(self.tail, self.data):
+                    t[:self.tail_n] = cp["tail_" + ds.name.lstrip("/")][slot, :self.tail_n]
+            f.attrs["n_frames"] = stored
             f.attrs["state"] = STATE_RUNNING
             f.attrs["complete"] = False
             f.attrs["status"] = _status_json(Status(False, "running"))
@@ -508,22 +527,55 @@ class HDF5Sink:
             raise
         self.slot = slot
         self.n_written = n_frames
+        self.n_stored = stored
         self.resumed = True
         return ResumeState(step, n_frames, x, v)
 
     # ---------------------------------------------------------------- write
     def write(self, frame0, time, positions, velocities):
-        k = len(time)
-        n = frame0 + k
-        arrays = [time, positions] + ([velocities] if len(self.datasets) > 2 else [])
+        n = frame0 + len(time)
+        arrays = [positions] + ([velocities] if len(self.data) > 1 else [])
         try:
-            for ds, data in zip(self.datasets, arrays):
-                if ds.shape[0] < n:
-                    ds.resize(n, axis=0)
-                ds[frame0:n] = data
+            _put(self.datasets[0], frame0, time)
+            if self.buffered:
+                self._buffer(arrays)
+            else:
+                for ds, data in zip(self.data, arrays):
+                    _put(ds, frame0, data)
+                self.n_stored = n
         except (OSError, RuntimeError) as exc:
             raise self._failed(exc) from None
         self.n_written = n
+
+    def _buffer(self, arrays):
+        """Compressed data goes to the file in whole chunks only.
+
+        A compressed chunk rewritten after a checkpoint (to add frames) may land on
+        the very bytes the checkpointed index points at, so a crash then would
+        spoil frames already promised valid. Frames of the unfinished last chunk
+        are kept here, and stored with each checkpoint in ``checkpoint/tail_*``.
+        """
+        cf, k, i = self.frame_chunk, len(arrays[0]), 0
+        while i < k:
+            if self.tail_n == 0 and k - i >= cf:
+                m = (k - i) // cf * cf
+                for ds, data in zip(self.data, arrays):
+                    _put(ds, self.n_stored, data[i:i + m])
+                self.n_stored += m
+            else:
+                m = min(cf - self.tail_n, k - i)
+                for t, data in zip(self.tail, arrays):
+                    t[self.tail_n:self.tail_n + m] = data[i:i + m]
+                self.tail_n += m
+                if self.tail_n == cf:
+                    self._store_tail()
+            i += m
+
+    def _store_tail(self):
+        for ds, t in zip(self.data, self.tail):
+            _put(ds, self.n_stored, t[:self.tail_n])
+        self.n_stored += self.tail_n
+        self.tail_n = 0
 
     def checkpoint(self, step, positions, velocities):
         """Store the state after ``step`` in the spare slot, flush, then point at it."""
@@ -535,11 +587,15 @@ class HDF5Sink:
             cp["positions"][new] = positions
             if velocities is not None and "velocities" in cp:
                 cp["velocities"][new] = velocities
+            for ds, t in zip(self.data, self.tail):
+                cp["tail_" + ds.name.lstrip("/")][new, :self.tail_n] = t[:self.tail_n]
             f.flush()                          # frames and the new slot are on disk ...
             cp.attrs["step"] = int(step)
             cp.attrs["n_frames"] = int(self.n_written)
+            cp.attrs["stored_frames"] = int(self.n_stored)
+            cp.attrs["tail_frames"] = int(self.tail_n)
             cp.attrs["slot"] = new             # ... before anything points at them
-            f.attrs["n_frames"] = int(self.n_written)
+            f.attrs["n_frames"] = int(self.n_stored)
             f.flush()
         except (OSError, RuntimeError) as exc:
             raise self._failed(exc) from None
@@ -591,13 +647,15 @@ class HDF5Sink:
     def finish(self, status):
         f = self.file
         if f is not None:
-            f.attrs["n_frames"] = int(self.n_written)
             if status.complete:
                 state = STATE_COMPLETE
             elif status.step >= 0 and status.particle >= 0:
                 state = STATE_FAILED
             else:
                 state = STATE_INTERRUPTED
+            if state != STATE_INTERRUPTED and self.tail_n:   # nothing will follow these frames
+                self._store_tail()
+            f.attrs["n_frames"] = int(self.n_stored)
             f.attrs["status"] = _status_json(status)
             f.attrs["complete"] = bool(status.complete)
             f.attrs["state"] = state
@@ -640,6 +698,14 @@ def _headroom(datasets, f):
     on disk, plus metadata."""
     cache = f.id.get_access_plist().get_cache()[2]
     return 2**19 + len(datasets) * int(cache)
+
+
+def _put(ds, start, data):
+    """Write ``data`` at frame ``start`` of ``ds``, growing it as needed."""
+    stop = start + len(data)
+    if ds.shape[0] < stop:
+        ds.resize(stop, axis=0)
+    ds[start:stop] = data
 
 
 #: Files frozen after a write error (kept referenced so that nothing flushes them).
