@@ -307,7 +307,6 @@ def cmd_info(args):
 def cmd_check(args):
     from .trajectory import load
     from .validation import ConfigError
-    from . import check as _check
     if args.plots is not None and os.path.exists(args.plots):
         if not os.path.isdir(args.plots):
             raise ConfigError(f"--plots {args.plots!r}: is a file; expected a folder")
@@ -321,6 +320,7 @@ def cmd_check(args):
         if not os.path.isdir(parent):
             raise ConfigError(f"--plots {args.plots!r}: folder {parent!r} does not exist; "
                               "expected an existing parent folder")
+    from . import check as _check
     with load(args.file) as traj:
         if not traj.status.complete:
             print(f"warning: {traj.path} is not complete; checking its {traj.n_frames} valid "

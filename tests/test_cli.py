@@ -94,12 +94,17 @@ def test_info_describes_the_run(small_run):
         assert needle in text, (needle, text)
 
 
-def test_check_passes_and_fails(small_run, tmp_path):
+def test_check_passes_fails_and_keeps_figures(small_run, tmp_path):
+    pytest.importorskip("matplotlib")
     _, out, _ = small_run
-    proc = langsim_cli("check", out, "--json")
+    plots = tmp_path / "figs"
+    proc = langsim_cli("check", out, "--json", "--plots", plots)
     assert proc.returncode == 0, proc.stdout + proc.stderr
     report = json.loads(proc.stdout)
     assert report["passed"] and report["rows"]
+    assert list(plots.glob("*.png"))
+    proc = langsim_cli("check", out, "--plots", plots)
+    assert_usage_error(proc, "--plots", "already holds figures", "--overwrite")
     # The same frames claimed to come from a trap 3x stiffer must fail the check.
     wrong = tmp_path / "wrong.h5"
     wrong.write_bytes(out.read_bytes())
@@ -110,18 +115,6 @@ def test_check_passes_and_fails(small_run, tmp_path):
     proc = langsim_cli("check", wrong)
     assert proc.returncode == 1, proc.stdout + proc.stderr
     assert "FAILED" in proc.stdout
-
-
-def test_check_plots_never_replace_figures_unasked(small_run, tmp_path):
-    pytest.importorskip("matplotlib")
-    _, out, _ = small_run
-    plots = tmp_path / "figs"
-    proc = langsim_cli("check", out, "--plots", plots)
-    assert proc.returncode == 0, proc.stderr
-    names = sorted(p.name for p in plots.glob("*.png"))
-    assert names
-    proc = langsim_cli("check", out, "--plots", plots)
-    assert_usage_error(proc, "--plots", "already holds figures", "--overwrite")
 
 
 def test_help_and_version():
