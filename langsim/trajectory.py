@@ -147,7 +147,8 @@ CHUNK_TARGET_BYTES = 2**20
 #: Largest chunk along the particle axis when one frame is bigger than this.
 CHUNK_MAX_BYTES = 64 * 2**20
 #: Resolved-config keys that do not change the simulated numbers; a resume may differ in them.
-RESUME_IGNORED = (("output", "path"), ("output", "checkpoint_every"), ("output", "compression"))
+RESUME_IGNORED = (("output", "path"), ("output", "checkpoint_every"), ("output", "compression"),
+                  ("dynamics", "allow_unstable"))
 #: Values of the root attribute ``state``.
 STATE_RUNNING = "running"          # being written, or the writer was killed
 STATE_INTERRUPTED = "interrupted"  # stopped on request at a checkpoint; resumable
