@@ -9,7 +9,7 @@ __version__ = "0.1.0"
 __all__ = ["run", "load", "check", "Trajectory", "potentials", "__version__"]
 
 _LAZY = {"run": ("engine", "run"), "load": ("trajectory", "load"),
-         "Trajectory": ("trajectory", "Trajectory"), "check": ("check", "check"),
+         "Trajectory": ("trajectory", "Trajectory"), "check": ("checks", "check"),
          "potentials": ("potentials", None)}
 
 

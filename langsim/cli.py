@@ -2,7 +2,7 @@
 
 Thin on purpose: argument parsing, exit codes, progress and messages. The work
 is done by :func:`langsim.engine.run`, :func:`langsim.trajectory.load` and
-:func:`langsim.check.check`.
+:func:`langsim.checks.check`.
 
 Exit codes: 0 success; 1 a check failed, or the run ended early with a
 numerical blow-up; 2 bad input or usage; 130 / 143 stopped by SIGINT / SIGTERM
@@ -320,7 +320,7 @@ def cmd_check(args):
         if not os.path.isdir(parent):
             raise ConfigError(f"--plots {args.plots!r}: folder {parent!r} does not exist; "
                               "expected an existing parent folder")
-    from . import check as _check
+    from . import checks as _check
     with load(args.file) as traj:
         if not traj.status.complete:
             print(f"warning: {traj.path} is not complete; checking its {traj.n_frames} valid "

@@ -11,7 +11,7 @@ import math
 import numpy as np
 import pytest
 
-from langsim.check import CheckReport, check, write_plots
+from langsim.checks import CheckReport, check, write_plots
 from test_analysis import GAMMA, KT, Traj, config, double_well_sim, harmonic_trajectory, rng
 
 
@@ -157,3 +157,9 @@ def test_engine_double_well_escape_rate_vs_mfpt():
     rows = {r.quantity: r for r in rep.rows}
     assert rep.passed, rep.format_table()
     assert rows["escape rate A->B"].status == "pass" and rows["escape rate B->A"].status == "pass"
+
+
+def test_public_check_is_the_function_even_after_submodule_imports():
+    import langsim
+    import langsim.checks  # noqa: F401  (a submodule import must not shadow langsim.check)
+    assert langsim.check is check
