@@ -30,7 +30,6 @@ CHUNK_PARTICLE_STEPS = 20_000_000
 #: ``every`` of a kernel call that records nothing (burn-in): no step reaches it.
 NO_RECORD = 2**62
 
-_user_kernels = {}
 
 
 class RunWarning(UserWarning):
@@ -67,18 +66,6 @@ def _catch_signals(stop):
     return restore
 
 
-def _kernels(user_force):
-    """(overdamped, underdamped) kernels, compiled once per user term."""
-    if user_force is None:
-        return _schemes.advance_overdamped, _schemes.advance_underdamped
-    key = id(user_force)
-    if key not in _user_kernels:
-        _user_kernels[key] = (user_force,
-                              _schemes.with_user_term(_schemes.advance_overdamped, user_force),
-                              _schemes.with_user_term(_schemes.advance_underdamped, user_force))
-    return _user_kernels[key][1:]
-
-
 class Engine:
     """Advances one :class:`~langsim.config.RunSpec` and feeds a sink.
 
@@ -100,8 +87,14 @@ class Engine:
         self.threads = threads
         d = spec.particles.dimensions
         self.codes, self.params = _pot.builtin_rows(spec.terms, d)
-        self.user_force = _pot.compile_user_terms(spec.terms, d)
-        self.kernel_od, self.kernel_ud = _kernels(self.user_force)
+        user = _pot.user_terms(spec.terms, d)
+        if user is None:
+            self.kernel_od, self.kernel_ud = _schemes.advance_overdamped, _schemes.advance_underdamped
+            self.extra_params = np.zeros(0)
+        else:
+            from .kernels.specialise import kernels_for
+            self.kernel_od, self.kernel_ud = kernels_for(user)
+            self.extra_params = user.parameters
         self.friction = np.array(spec.particles.friction, dtype=np.float64)
         dyn = spec.dynamics
         if dyn.regime == "underdamped":
@@ -120,12 +113,13 @@ class Engine:
         if spec.dynamics.regime == "overdamped":
             self.kernel_od(x, np.int64(step0), np.int64(n_steps), dt, kT, self.friction,
                            OVERDAMPED[spec.dynamics.scheme], k0, k1, codes, params,
-                           np.int64(every), out_x, status)
+                           self.extra_params, np.int64(every), out_x, status)
         else:
             self.kernel_ud(x, v, np.int64(step0), np.int64(n_steps), dt, kT,
                            float(spec.particles.mass), self.friction, self.letters,
-                           self.fractions, k0, k1, codes, params, np.int64(every),
-                           out_x, out_v, out_v.shape[0] > 0 and spec.output.velocities, status)
+                           self.fractions, k0, k1, codes, params, self.extra_params,
+                           np.int64(every), out_x, out_v,
+                           out_v.shape[0] > 0 and spec.output.velocities, status)
         failed = status[status[:, 0] != 0]
         if failed.size:
             first = failed[np.argmin(failed[:, 2])]
@@ -176,18 +170,20 @@ class Engine:
         resume = self.sink.start(spec)
         if resume is None:
             rng = seeding.initial_rng(spec.seed)
-            x = initial.initial_positions(spec, rng)
-            v = (initial.initial_velocities(spec, rng) if dyn.regime == "underdamped"
-                 else np.zeros((p.count, p.dimensions)))
+            # C order always: one compiled signature per kernel
+            x = np.ascontiguousarray(initial.initial_positions(spec, rng), dtype=np.float64)
+            v = np.ascontiguousarray(initial.initial_velocities(spec, rng)
+                                     if dyn.regime == "underdamped"
+                                     else np.zeros((p.count, p.dimensions)), dtype=np.float64)
             self._burn_in(x, v)
             self.sink.write(0, np.array([0.0]), x[None], v[None] if out.velocities else None)
             step, frame = 0, 1
             self.sink.checkpoint(0, x, v if dyn.regime == "underdamped" else None)
         else:
             step, frame = resume.step, resume.n_frames
-            x = np.array(resume.positions, dtype=np.float64)
-            v = (np.array(resume.velocities, dtype=np.float64) if resume.velocities is not None
-                 else np.zeros_like(x))
+            x = np.array(resume.positions, dtype=np.float64, order="C")
+            v = (np.array(resume.velocities, dtype=np.float64, order="C")
+                 if resume.velocities is not None else np.zeros_like(x))
         if self.threads is not None:
             import numba
             previous = numba.get_num_threads()

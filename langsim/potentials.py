@@ -427,9 +427,13 @@ class Expression(Term):
     def resolved(self):
         return {"type": self.name, "energy": self.energy, "parameters": dict(self.parameters)}
 
-    def sympy_energy(self, d):
+    def sympy_energy(self, d, substitute=True):
+        """(sympy energy, coordinate symbols, time symbol); parameters replaced
+        by their values unless ``substitute`` is False."""
         import sympy
         expr, coords, t = parse_energy(self.energy, self.parameters, d)
+        if not substitute:
+            return expr, coords, t
         values = {sympy.Symbol(k, real=True): v for k, v in self.parameters.items()}
         return expr.subs(values), coords, t
 
@@ -473,18 +477,29 @@ def builtin_rows(terms, d):
     return codes, params
 
 
-_SOURCE_TEMPLATE = """
-def {name}(pos, t, force):
-{unpack}
-{body}
-    return {energy}
-"""
+@dataclass(frozen=True)
+class UserTerms:
+    """The user terms of a run, as source code for the compiled kernels.
+
+    ``source`` defines ``extra_force(pos, t, force, P) -> energy`` (numba
+    compilable), which writes -grad U of all user terms into ``force``;
+    ``parameters`` is the float64 vector P (expression parameters are read
+    from it at run time, so a sweep over their values compiles once);
+    ``objects`` are Python objects the source refers to by name (user
+    functions); ``key`` identifies the source when it may be cached on disk
+    (None when it refers to objects).
+    """
+
+    source: str
+    parameters: np.ndarray
+    objects: dict
+    key: object
 
 
-def compile_user_terms(terms, d):
-    """One numba function ``f(x, t, force) -> energy`` summing all user terms,
-    or None when there are none."""
-    from numba import njit
+def user_terms(terms, d):
+    """A :class:`UserTerms` for the expression and function terms, or None."""
+    import hashlib
+
     import sympy
     from sympy.printing.pycode import pycode
 
@@ -492,34 +507,40 @@ def compile_user_terms(terms, d):
     funcs = [t.function for t in terms if isinstance(t, Function)]
     if not exprs and not funcs:
         return None
-    namespace = {"math": math, "np": np}
-    parts = []
+    lines = ["def extra_force(pos, t, force, P):"]
+    lines += [f"    {c} = pos[{i}]" for i, c in enumerate(_COORDS[:d])]
+    lines.append("    energy = 0.0")
+    values = []
     if exprs:
         total = 0
-        coords = t_sym = None
-        for term in exprs:
-            e, coords, t_sym = term.sympy_energy(d)
-            total = total + e
-        lines = [f"    {c.name} = pos[{i}]" for i, c in enumerate(coords)]
-        body = [f"    force[{i}] = {pycode(-sympy.diff(total, c), fully_qualified_modules=True)}"
-                for i, c in enumerate(coords)]
-        src = _SOURCE_TEMPLATE.format(name="_expression_term", unpack="\n".join(lines) or "    pass",
-                                      body="\n".join(body),
-                                      energy=pycode(total, fully_qualified_modules=True))
-        src = src.replace("math.Abs", "abs")
-        exec(compile(src, "<langsim expression>", "exec"), namespace)  # whitelisted AST only
-        parts.append(njit(namespace["_expression_term"]))
-    for fn in funcs:
-        parts.append(fn if hasattr(fn, "py_func") else njit(fn))
-    if len(parts) == 1:
-        return parts[0]
-    calls = []
-    for i, fn in enumerate(parts):
-        namespace[f"_part{i}"] = fn
-        calls.append(f"    energy += _part{i}(pos, t, scratch)\n"
-                     f"    for a in range({d}):\n        force[a] += scratch[a]")
-    src = ("def _sum_of_terms(pos, t, force):\n    scratch = np.empty({d})\n"
-           "    energy = 0.0\n    for a in range({d}):\n        force[a] = 0.0\n").format(d=d)
-    src += "\n".join(calls) + "\n    return energy\n"
-    exec(compile(src, "<langsim user terms>", "exec"), namespace)
-    return njit(namespace["_sum_of_terms"])
+        coords = None
+        for i, term in enumerate(exprs):
+            expr, coords, _ = term.sympy_energy(d, substitute=False)
+            # parameters of term i are read as P[...] under names of their own
+            renames = {}
+            for name in sorted(term.parameters):
+                renames[sympy.Symbol(name, real=True)] = sympy.Symbol(f"_p{len(values)}", real=True)
+                values.append(term.parameters[name])
+            total = total + expr.subs(renames)
+        lines += [f"    _p{k} = P[{k}]" for k in range(len(values))]
+        for i, c in enumerate(coords):
+            lines.append(f"    force[{i}] = {pycode(-sympy.diff(total, c), fully_qualified_modules=True)}")
+        lines.append(f"    energy += {pycode(total, fully_qualified_modules=True)}")
+    else:
+        lines += [f"    force[{i}] = 0.0" for i in range(d)]
+    objects = {}
+    if funcs:
+        lines.append(f"    scratch = np.empty({d})")
+        for k, fn in enumerate(funcs):
+            objects[f"_user_function{k}"] = fn if hasattr(fn, "py_func") else _njit(fn)
+            lines.append(f"    energy += _user_function{k}(pos, t, scratch)")
+            lines += [f"    force[{i}] += scratch[{i}]" for i in range(d)]
+    lines.append("    return energy")
+    source = "\n".join(lines).replace("math.Abs", "abs") + "\n"
+    key = None if objects else hashlib.sha256(f"{d}\n{source}".encode()).hexdigest()[:24]
+    return UserTerms(source, np.array(values, dtype=np.float64), objects, key)
+
+
+def _njit(fn):
+    from numba import njit
+    return njit(fn)

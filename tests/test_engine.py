@@ -151,18 +151,24 @@ def test_function_term_samples_its_boltzmann_density():
     assert abs(z_score(mean, err, 1.15 * _quartic_variance(a))[0]) > Z_MAX
 
 
-def test_expression_matches_builtin_bit_for_bit_in_force():
-    # the same double well written as an expression and as the built-in term
-    # gives the same trajectory to rounding (different evaluation order only)
-    L, barrier = 1e-6, 3 * kT
-    builtin = {"type": "double-well", "barrier": barrier, "separation": L}
-    expr = {"type": "expression", "energy": "B*((2*x/L)**2 - 1)**2",
-            "parameters": {"B": barrier, "L": L}}
+def test_expression_matches_builtin_and_takes_parameters_at_run_time(tmp_path, monkeypatch):
+    """The built-in double well written as an expression gives the same
+    trajectory to rounding (symbolic gradient vs hand-written force), for two
+    sets of parameter values that share one specialised kernel module,
+    compiled once and cached on disk."""
+    from langsim.kernels import specialise
+    monkeypatch.setenv("LANGSIM_CACHE_DIR", str(tmp_path))
     base = {"seed": 5, "particles": {"count": 64, "friction": GAMMA, "initial": [0.3e-6]},
             "dynamics": {"dt": 1e-5, "steps": 200}}
-    a = _run({**base, "potential": [builtin]})
-    b = _run({**base, "potential": [expr]})
-    np.testing.assert_allclose(a.positions, b.positions, rtol=1e-9, atol=1e-18)
+    for L, barrier in ((1e-6, 3 * kT), (0.8e-6, 5 * kT)):
+        builtin = {"type": "double-well", "barrier": barrier, "separation": L}
+        expr = {"type": "expression", "energy": "B*((2*x/L)**2 - 1)**2",
+                "parameters": {"B": barrier, "L": L}}
+        a = _run({**base, "potential": [builtin]})
+        b = _run({**base, "potential": [expr]})
+        np.testing.assert_allclose(a.positions, b.positions, rtol=1e-9, atol=1e-18)
+    assert len(list(tmp_path.glob("langsim_kernels_*.py"))) == 1
+    assert specialise.cache_dir() == str(tmp_path)
 
 
 def test_expression_injection_is_refused_without_running_it(tmp_path):
@@ -240,3 +246,4 @@ def test_point_and_per_particle_initial_positions():
     assert np.array_equal(_run(cfg).positions[0], start)
     cfg["particles"]["initial"] = [1e-7, -1e-7]
     assert np.array_equal(_run(cfg).positions[0], np.tile([1e-7, -1e-7], (3, 1)))
+

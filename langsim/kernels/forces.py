@@ -126,7 +126,7 @@ def builtin_forces(codes, params, X, t, F, energy, with_energy):
 
 
 @njit(cache=True)
-def no_extra(x, t, force):
+def no_extra(x, t, force, p):
     """User term of runs with built-in terms only: zero energy, zero force."""
     for a in range(x.shape[0]):
         force[a] = 0.0

@@ -26,7 +26,6 @@ References
        20140120 (2014).
 """
 import math
-import types
 
 import numpy as np
 from numba import njit, prange
@@ -42,16 +41,18 @@ TILE = 64
 #: Steps of noise generated per block.
 BLOCK = 64
 
+#: The user term (see :mod:`langsim.kernels.specialise`, which compiles copies
+#: of these kernels with its own ``extra_force``): none in this module.
 extra_force = no_extra
 HAS_EXTRA = False
 
 
 @njit(inline="always", cache=True)
-def _forces(codes, params, X, t, F, Fx, energy):
+def _forces(codes, params, extra_params, X, t, F, Fx, energy):
     builtin_forces(codes, params, X, t, F, energy, False)
     if HAS_EXTRA:
         for i in range(X.shape[0]):
-            extra_force(X[i], t, Fx)
+            extra_force(X[i], t, Fx, extra_params)
             for a in range(X.shape[1]):
                 F[i, a] += Fx[a]
 
@@ -97,7 +98,7 @@ def _per_element(per_axis, n):
 
 @njit(parallel=True, cache=True)
 def advance_overdamped(x, step0, n_steps, dt, kT, friction, averaged_noise,
-                       k0, k1, codes, params, every, out_x, status):
+                       k0, k1, codes, params, extra_params, every, out_x, status):
     """Advance overdamped particles by ``n_steps`` steps in place.
 
     x_{n+1} = x_n + (dt/gamma) F(x_n, t_n) + sqrt(2 kT dt/gamma) eta_n with
@@ -142,7 +143,7 @@ def advance_overdamped(x, step0, n_steps, dt, kT, friction, averaged_noise,
             failed = False
             for s in range(nb):
                 step = first + s
-                _forces(codes, params, X, step * dt, F, Fx, energy)
+                _forces(codes, params, extra_params, X, step * dt, F, Fx, energy)
                 xi = noise[s]
                 if averaged_noise:
                     xi1 = noise[s + 1]
@@ -168,7 +169,7 @@ def advance_overdamped(x, step0, n_steps, dt, kT, friction, averaged_noise,
 
 @njit(parallel=True, cache=True)
 def advance_underdamped(x, v, step0, n_steps, dt, kT, mass, friction,
-                        letters, fractions, k0, k1, codes, params, every,
+                        letters, fractions, k0, k1, codes, params, extra_params, every,
                         out_x, out_v, record_v, status):
     """Advance underdamped particles by a splitting scheme, in place.
 
@@ -246,7 +247,8 @@ def advance_underdamped(x, v, step0, n_steps, dt, kT, mass, friction,
                         force_valid = False
                     elif letter == LETTER_B:
                         if not force_valid:
-                            _forces(codes, params, X, (step + elapsed) * dt, F, Fx, energy)
+                            _forces(codes, params, extra_params, X, (step + elapsed) * dt, F, Fx,
+                                    energy)
                             force_valid = True
                         kick = h / mass
                         for e in range(nd):
@@ -279,22 +281,3 @@ def advance_underdamped(x, v, step0, n_steps, dt, kT, mass, friction,
             done += nb
         x[p0:p0 + n] = X
         v[p0:p0 + n] = V
-
-
-def with_user_term(kernel, user_force):
-    """A copy of ``kernel`` (a numba dispatcher of this module) calling ``user_force``.
-
-    The copy has the same code with the module globals ``extra_force`` and
-    ``HAS_EXTRA`` rebound, so built-in-only runs keep the cached kernels while
-    runs with a user term compile once per term. Not cached on disk.
-    """
-    glb = dict(kernel.py_func.__globals__)
-    glb["extra_force"] = user_force
-    glb["HAS_EXTRA"] = True
-    helpers = {}
-    for name in ("_forces",):
-        f = glb[name].py_func
-        helpers[name] = njit(inline="always")(types.FunctionType(f.__code__, glb, name))
-    glb.update(helpers)
-    py = kernel.py_func
-    return njit(parallel=True)(types.FunctionType(py.__code__, glb, py.__name__))
