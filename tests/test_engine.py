@@ -247,3 +247,22 @@ def test_point_and_per_particle_initial_positions():
     cfg["particles"]["initial"] = [1e-7, -1e-7]
     assert np.array_equal(_run(cfg).positions[0], np.tile([1e-7, -1e-7], (3, 1)))
 
+
+
+@pytest.mark.parametrize("term, lo, hi, energy", [
+    # a finite well: the Boltzmann density within its basin (two waists of the centre)
+    ({"type": "gaussian-well", "depth_kT": 3.0, "waist": 1e-6, "center": 2e-7},
+     2e-7 - 2e-6, 2e-7 + 2e-6, lambda s: -3 * kT * math.exp(-2 * (s - 2e-7) ** 2 / 1e-12)),
+    # a periodic term alone: one period around its centre, corrugation only
+    ({"type": "periodic", "barrier_kT": 4.0, "period": 1e-6, "tilt": 1e-15},
+     -0.5e-6, 0.5e-6, lambda s: 2 * kT * (1 - math.cos(2 * math.pi * s / 1e-6)))])
+def test_equilibrium_start_in_a_basin_or_a_period(term, lo, hi, energy):
+    cfg = {"seed": 13, "particles": {"count": 3000, "friction": GAMMA}, "medium": {"temperature": T},
+           "potential": [term], "dynamics": {"dt": 1e-6, "steps": 1}}
+    x0 = np.asarray(_run(cfg).positions[0, :, 0])
+    assert x0.min() >= lo and x0.max() <= hi
+    cdf = _exact_cdf(energy, lo, hi)
+    assert stats.kstest(x0, np.vectorize(cdf)).pvalue > 1e-3
+    # rejected: the density at twice the temperature
+    hot = _exact_cdf(lambda s: energy(s) / 2, lo, hi)
+    assert stats.kstest(x0, np.vectorize(hot)).pvalue < 1e-6
