@@ -6,12 +6,11 @@ and derived values (viscosity "water", Stokes friction, mass, steps/duration,
 the seed) as plain SI numbers. Every problem found is reported together in one
 :class:`~langsim.validation.ConfigError`, each naming key, value and expectation.
 """
-import copy
 import math
 import os
 import tomllib
 import warnings
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -172,6 +171,8 @@ def load(source):
     top.finish()
     errors.raise_if_any()
 
+    provisional = RunSpec(seed, particles, medium, tuple(terms), dynamics, output, {})
+    particles = replace(particles, burn_in=_burn_in(provisional))
     resolved = {
         "seed": seed,
         "particles": {
@@ -192,7 +193,6 @@ def load(source):
     }
     spec = RunSpec(seed, particles, medium, tuple(terms), dynamics, output, resolved)
     _guard_step(spec, path)
-    spec = _with_burn_in(spec)
     return spec
 
 
@@ -382,8 +382,9 @@ def separable(spec):
     return all(t.separable for t in spec.terms)
 
 
-def _with_burn_in(spec):
-    """Fill in the burn-in: 0 where equilibrium is sampled exactly, else a stated length."""
+def _burn_in(spec):
+    """The burn-in (s, whole steps): as given, 0 where equilibrium is sampled
+    exactly, else BURN_IN_RELAXATIONS relaxation times."""
     p = spec.particles
     if p.burn_in is not None:
         value = p.burn_in
@@ -391,13 +392,7 @@ def _with_burn_in(spec):
         value = BURN_IN_RELAXATIONS * relaxation_time(spec)
     else:
         value = 0.0
-    value = math.ceil(value / spec.dynamics.dt) * spec.dynamics.dt
-    resolved = copy.deepcopy({k: v for k, v in spec.resolved.items() if k != "potential"})
-    resolved["potential"] = spec.resolved["potential"]
-    resolved["particles"]["burn_in"] = value
-    particles = Particles(**{**p.__dict__, "burn_in": value})
-    return RunSpec(spec.seed, particles, spec.medium, spec.terms, spec.dynamics, spec.output,
-                   resolved)
+    return math.ceil(value / spec.dynamics.dt - 1e-9) * spec.dynamics.dt
 
 
 def relaxation_time(spec):
