@@ -23,6 +23,7 @@ from scipy import optimize
 from . import theory
 from .analysis import (BoltzmannTest, EscapeRate, InsufficientDataError, LorentzianFit, axis_moments,
                        mean_msd, msd_at_lags)
+from .analysis.spectra import SCHEMES
 from .analysis.stats import FrameSource
 from .units import k_B
 
@@ -383,33 +384,61 @@ def check(traj, z_threshold=4.5, min_events=20, transient_factor=10.0):
 
 
 def _psd_rows(report, traj, s, a, start, kw):
+    """Corner frequency, D and stiffness from an ML fit of the scheme's exact expected periodogram.
+
+    The model (:func:`~langsim.analysis.spectra.scheme_psd`) is the exact
+    expectation of the blocked periodogram of the scheme's recorded positions,
+    leakage included, parametrised by the physical (f_c, D); fitted to that
+    expectation it returns them exactly, so the predictions are the physical
+    kappa/(2 pi gamma) and kT/gamma. Segments are at least 32 relaxation times
+    and, data permitting, 16 tau_f^2 frames (tau_f = relaxation time in
+    frames): the segment edges add leakage noise correlated across all
+    frequencies, which the Fisher errors miss; it inflates the spread of the
+    estimates by about sqrt(1 + tau_f^2/N) (derived scaling, confirmed by
+    simulation), so the errors are multiplied by that factor.
+    """
     k, g = s.kappa[a], s.friction[a]
     tau = g / k
     n = FrameSource(traj.positions).n_frames - start
     if tau < s.frame_dt:
         report.notes.append(f"axis {AXES[a]}: relaxation time below the frame interval, PSD check skipped")
         return
-    N = int(min(1 << 16, max(64, 1 << int(math.ceil(math.log2(32.0 * tau / s.frame_dt))))))
-    if n < 4 * N:
-        report.notes.append(f"axis {AXES[a]}: {n} frames are fewer than 4 segments of {N}; PSD check skipped")
+    if s.scheme not in SCHEMES:
+        report.notes.append(f"axis {AXES[a]}: no spectrum model for scheme {s.scheme!r}; PSD check skipped")
+        return
+    tau_f = tau / s.frame_dt
+    n_min = max(64, 1 << int(math.ceil(math.log2(32.0 * tau_f))))
+    N = 1 << int(math.ceil(math.log2(max(n_min, 16.0 * tau_f * tau_f))))
+    N = min(N, 1 << 16, 1 << int(math.floor(math.log2(max(n // 4, 1)))))
+    if N < n_min or n < 4 * N:
+        report.notes.append(f"axis {AXES[a]}: {n} frames are fewer than 4 segments of {n_min}; PSD check skipped")
         return
     try:
         acov = theory.scheme_position_autocovariance(s.scheme, np.arange(N), s.kT, k, g, s.dt, s.every)
     except ValueError as e:
         report.notes.append(f"axis {AXES[a]}: {e}")
         return
-    fit = LorentzianFit(s.frame_dt, model="aliased", segment_length=N, axis=a, start=start).fit(traj.positions)
-    expected = theory.expected_periodogram(acov, s.frame_dt)[1:N // 2 + 1]
-    pred = LorentzianFit(s.frame_dt, model="aliased", segment_length=N).fit_spectrum(
-        fit.frequencies_, expected, fit.psd_count_)
-    form = (f"aliased Lorentzian ML fit; prediction = same fit to the exact expected periodogram of "
-            f"the {s.scheme} process (continuous f_c = {k / (2 * math.pi * g):.6g} Hz, D = {s.kT / g:.6g})")
-    report.rows.append(_row(f"corner frequency {AXES[a]}", fit.corner_frequency_, fit.corner_frequency_err_,
-                            pred.corner_frequency_, form, SRC_OU, "Hz", **kw))
-    report.rows.append(_row(f"diffusion coefficient {AXES[a]} (PSD)", fit.diffusion_, fit.diffusion_err_,
-                            pred.diffusion_, form, SRC_OU, "m^2/s", **kw))
+    # Leimkuhler-Matthews recorded every step has a spectral zero at the Nyquist frequency, where the
+    # periodogram is dominated by (correlated) leakage: fit below half the Nyquist frequency there.
+    f_max = 0.25 / s.frame_dt if (s.scheme == "leimkuhler-matthews" and s.every == 1) else None
+    fit = LorentzianFit(s.frame_dt, model=s.scheme, step_dt=s.dt, every=s.every, segment_length=N, f_max=f_max,
+                        friction=g, axis=a, start=start).fit(traj.positions)
+    infl = math.sqrt(1.0 + tau_f * tau_f / N)
+    fc, D = k / (2.0 * math.pi * g), s.kT / g
+    band = "" if f_max is None else f" up to {f_max:.4g} Hz"
+    form = (f"ML fit{band} of the exact expected periodogram of the {s.scheme} process (step {s.dt:.3g} s, "
+            f"every {s.every}, {N}-frame segments) in physical f_c, D; errors x {infl:.3f} for edge leakage")
+    src = SRC_OU + "; scheme spectrum derived"
+    report.rows.append(_row(f"corner frequency {AXES[a]}", fit.corner_frequency_, infl * fit.corner_frequency_err_,
+                            fc, "f_c = kappa/(2 pi gamma); " + form, src, "Hz", **kw))
+    report.rows.append(_row(f"diffusion coefficient {AXES[a]} (PSD)", fit.diffusion_, infl * fit.diffusion_err_,
+                            D, "D = kT/gamma; " + form, src, "m^2/s", **kw))
+    report.rows.append(_row(f"stiffness {AXES[a]} (PSD)", fit.stiffness_, infl * fit.stiffness_err_, k,
+                            "kappa = 2 pi gamma f_c with the configured friction", "common practice", "N/m",
+                            info=True, note="same test as the corner frequency", **kw))
+    expected = theory.expected_periodogram(acov, s.frame_dt)[1:N // 2 + 1][:fit.frequencies_.size]
     report._plot_data[f"psd {AXES[a]}"] = {"f": fit.frequencies_, "P": fit.psd_, "fit": fit.predict(fit.frequencies_),
-                                          "predicted": expected}
+                                          "predicted": expected, "label": f"fitted {s.scheme} spectrum"}
 
 
 def _extrema(U, c, L):
@@ -535,7 +564,7 @@ def write_plots(traj, report, directory):
         if key.startswith("psd"):
             fig, ax = plt.subplots()
             ax.loglog(d["f"], d["P"], ".", ms=2, label="blocked periodogram")
-            ax.loglog(d["f"], d["fit"], "-", label="fitted aliased Lorentzian")
+            ax.loglog(d["f"], d["fit"], "-", label=d.get("label", "fitted model"))
             ax.loglog(d["f"], d["predicted"], "--", label="predicted (exact expectation)")
             ax.set_xlabel("f (Hz)")
             ax.set_ylabel("two-sided PSD (m$^2$/Hz)")

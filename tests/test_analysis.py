@@ -285,3 +285,68 @@ def test_escape_rate_telegraph_calibration():
         e = EscapeRate(-0.5, 0.5, 1.0).fit(x)
         hits += abs(e.rate_ - (-math.log(1 - q))) <= e.rate_err_
     assert abs(hits / 100 - 0.683) < 4.5 * math.sqrt(0.683 * 0.317 / 100)
+
+
+# ------------------------------------------------ spectra of the discrete schemes
+def scheme_series(scheme, seed, r, every, frames, particles):
+    """Positions of an overdamped scheme in a harmonic trap, from its recursion (kT = kappa = 1).
+
+    Euler-Maruyama x' = a x + sqrt(2 r) xi, Leimkuhler-Matthews x' = a x + sqrt(2 r)(xi + xi')/2,
+    a = 1 - r, r = kappa dt/gamma (gamma = 1/dt in these units, so D = dt); recorded every `every` steps.
+    The start is drawn from the stationary variance and the first 20 relaxation times are discarded.
+    """
+    g = rng(seed)
+    burn = int(20 / r)
+    steps = frames * every + burn
+    xi = g.standard_normal((steps + 1, particles))
+    noise = math.sqrt(2 * r) * (xi[1:] if scheme == "euler-maruyama" else 0.5 * (xi[1:] + xi[:-1]))
+    x0 = g.standard_normal(particles) / math.sqrt(1 - r / 2)
+    x = lfilter([1.0], [1.0, -(1 - r)], noise, axis=0, zi=((1 - r) * x0)[None])[0]
+    return x[burn + every - 1::every]
+
+
+def test_scheme_psd_is_the_exact_expected_periodogram():
+    # references: the exact autocovariances (theory.scheme_position_autocovariance) through the
+    # Fejer sum (theory.expected_periodogram), and theory.ar1_psd for the infinite record
+    from langsim.analysis.spectra import scheme_psd
+    kT, k, g, dt, N = 1.0, 1.0, 1.0 / 0.03, 1.0, 512  # r = kappa dt/gamma = 0.03
+    fc, D = k / (2 * math.pi * g), kT / g
+    for scheme in ("euler-maruyama", "leimkuhler-matthews"):
+        for every in (1, 5):
+            T = dt * every
+            acov = th.scheme_position_autocovariance(scheme, np.arange(N), kT, k, g, dt, every)
+            f = np.arange(1, N // 2 + 1) / (N * T)
+            ref = th.expected_periodogram(acov, T)[1:]
+            assert np.allclose(scheme_psd(f, fc, D, dt, every, scheme, N), ref, rtol=1e-9)
+            assert not np.allclose(scheme_psd(f, 1.01 * fc, D, dt, every, scheme, N), ref, rtol=1e-3)
+            c = (1 - k * dt / g) ** every
+            inf = th.ar1_psd(f[:-1], acov[0], c, T, acov[1] / acov[0] / c)
+            assert np.allclose(scheme_psd(f[:-1], fc, D, dt, every, scheme), inf, rtol=1e-9)
+            # fitted to its own exact expectation, the ML fit returns the physical (f_c, D): no bias
+            fit = LorentzianFit(T, model=scheme, every=every, segment_length=N).fit_spectrum(f, ref, 100)
+            assert abs(fit.corner_frequency_ / fc - 1) < 1e-6 and abs(fit.diffusion_ / D - 1) < 1e-6
+
+
+@pytest.mark.parametrize("scheme", ["euler-maruyama", "leimkuhler-matthews"])
+@pytest.mark.parametrize("every", [1, 5])
+def test_scheme_fit_recovers_physical_corner_frequency_and_D(scheme, every):
+    # r = kappa dt/gamma per step; 20 frames per relaxation time in both cases (units kT = kappa = 1)
+    r = 0.05 if every == 1 else 0.01
+    dt = 1.0
+    fc, D = r / (2 * math.pi * dt), r  # f_c = kappa/(2 pi gamma), D = kT/gamma with gamma = dt/r
+    x = scheme_series(scheme, 40 + every, r, every, 2**15, 8)
+    T = dt * every
+    # LM recorded every step has a spectral zero at Nyquist: fit below half of it (see checks._psd_rows)
+    f_max = 0.25 / T if (scheme, every) == ("leimkuhler-matthews", 1) else None
+    fit = LorentzianFit(T, model=scheme, step_dt=dt, segment_length=4096, f_max=f_max, friction=dt / r).fit(x)
+    assert fit.every_ == every
+    assert within(fit.corner_frequency_, fit.corner_frequency_err_, fc)
+    assert within(fit.diffusion_, fit.diffusion_err_, D)
+    assert within(fit.stiffness_, fit.stiffness_err_, 1.0)
+    assert not within(fit.corner_frequency_, fit.corner_frequency_err_, 0.8 * fc)
+    assert not within(fit.diffusion_, fit.diffusion_err_, 0.9 * D)
+    if (scheme, every) == ("leimkuhler-matthews", 1):  # the continuous-process model is far off here
+        old = LorentzianFit(T, segment_length=4096).fit(x)
+        assert old.corner_frequency_ < 0.7 * fc
+    with pytest.raises(ValueError, match="step_dt"):
+        LorentzianFit(T, model=scheme, step_dt=0.3 * dt, every=every).fit(x)

@@ -163,3 +163,32 @@ def test_public_check_is_the_function_even_after_submodule_imports():
     import langsim
     import langsim.checks  # noqa: F401  (a submodule import must not shadow langsim.check)
     assert langsim.check is check
+
+
+def test_engine_lm_psd_reports_the_physical_corner_frequency():
+    # Leimkuhler-Matthews recorded every step, r = kappa dt/gamma = 0.05: the PSD rows must show the
+    # physical f_c = kappa/(2 pi gamma) and D = kT/gamma (Berg-Sorensen & Flyvbjerg 2004 definitions)
+    import langsim
+    T, dt = 298.15, 1e-5
+    gamma = 6 * math.pi * 0.89e-3 * 0.5e-6  # Stokes friction of the configured sphere (common practice)
+    k = 0.05 * gamma / dt
+    cfg = {"seed": 4, "particles": {"count": 20, "dimensions": 1, "radius": 0.5e-6},
+           "medium": {"temperature": T, "viscosity": 0.89e-3},
+           "potential": [{"type": "harmonic", "stiffness": k}],
+           "dynamics": {"regime": "overdamped", "scheme": "leimkuhler-matthews", "dt": dt, "steps": 100000},
+           "output": {"every": 1}}
+    traj = langsim.run(cfg, progress=False)
+    g = traj.config["particles"]["friction"][0]
+    assert abs(g / gamma - 1) < 1e-3
+    fc, D = k / (2 * math.pi * g), 1.380649e-23 * T / g
+    rep = check(traj)
+    rows = {r.quantity: r for r in rep.rows}
+    assert rep.passed, rep.format_table()
+    cf, dc = rows["corner frequency x"], rows["diffusion coefficient x (PSD)"]
+    assert cf.predicted == pytest.approx(fc, rel=1e-12) and dc.predicted == pytest.approx(D, rel=1e-12)
+    assert abs(cf.measured - fc) <= 4.5 * cf.error and abs(dc.measured - D) <= 4.5 * dc.error
+    assert rows["stiffness x (PSD)"].measured == pytest.approx(2 * math.pi * g * cf.measured, rel=1e-12)
+    bad = copy.deepcopy(traj.config)
+    bad["dynamics"]["dt"] *= 2
+    t2 = Traj(np.asarray(traj.positions), bad)
+    assert "corner frequency x" in failed(check(t2))

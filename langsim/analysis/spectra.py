@@ -14,6 +14,15 @@ References
 .. [1] K. Berg-Sorensen, H. Flyvbjerg, "Power spectrum analysis for optical
        tweezers", Rev. Sci. Instrum. 75, 594 (2004).
 .. [2] S. F. Norrelykke, H. Flyvbjerg, Phys. Rev. E 83, 041103 (2011).
+
+Scheme models ("euler-maruyama", "leimkuhler-matthews"): data produced by a
+discrete overdamped integrator are not an exactly sampled Ornstein-Uhlenbeck
+process, so the aliased Lorentzian fitted to them returns a corner frequency
+and D that are not the physical kappa/(2 pi gamma) and kT/gamma (for
+Leimkuhler-Matthews recorded every step, about half the corner frequency).
+:func:`scheme_psd` is the exact expected periodogram of such a recorded
+series, parametrised by the physical (f_c, D) at fixed step and recording
+interval (derived), so the ML fit returns the physical values.
 """
 import math
 
@@ -23,7 +32,8 @@ from scipy import optimize
 from .. import theory
 from .stats import Estimator, FrameSource, single_axis
 
-__all__ = ["blocked_periodogram", "fit_psd_model", "LorentzianFit", "OscillatorFit", "MODELS"]
+__all__ = ["blocked_periodogram", "fit_psd_model", "scheme_psd", "scheme_model", "LorentzianFit",
+           "OscillatorFit", "MODELS", "SCHEMES"]
 
 
 def blocked_periodogram(positions, dt, segment_length, start=0, axis=None):
@@ -85,6 +95,66 @@ MODELS = {
     "aliased-oscillator": (("f0", "Q"), lambda f, p, dt, na: _oscillator_unit(f, p[0], p[1], dt, na)),
 }
 
+#: overdamped integrators whose recorded spectrum :func:`scheme_psd` gives
+SCHEMES = ("euler-maruyama", "leimkuhler-matthews")
+
+
+def scheme_psd(f, fc, diffusion, step_dt, every, scheme, segment_length=None):
+    """Two-sided spectrum of an overdamped scheme's recorded positions in a harmonic trap, m^2/Hz.
+
+    Per step dt (``step_dt``), with r = kappa dt/gamma = 2 pi f_c dt and
+    a = 1 - r, Euler-Maruyama is x' = a x + sqrt(2 D dt) xi (AR(1)) and
+    Leimkuhler-Matthews x' = a x + sqrt(2 D dt)(xi + xi')/2 (ARMA(1,1)).
+    Recorded every ``every`` steps (frame interval T = every dt), the frame
+    autocovariance is g_0 = var, g_m = var rho_1 c^(m-1) (m >= 1), c = a^every,
+    with var = (D/(2 pi f_c))/(1 - r/2), rho_1 = c (Euler-Maruyama) or
+    var = D/(2 pi f_c), rho_1 = (1 - r/2) a^(every-1) (Leimkuhler-Matthews)
+    (derived from the recursions; see :func:`langsim.theory.scheme_position_autocovariance`).
+
+    Without ``segment_length`` this is the spectrum of the infinite series,
+    S(f) = T var [1 + 2 rho_1 Re(e^{-iw}/(1 - z))], w = 2 pi f T, z = c e^{-iw}
+    (geometric series; equals :func:`langsim.theory.ar1_psd`). With
+    ``segment_length`` N it is the exact expectation of the periodogram of N
+    frames, (T/N) sum_{|m|<N} (N - |m|) g_m e^{-iwm}
+    = T var [1 + 2 rho_1 Re(e^{-iw} (1/(1 - z) - (1 - z^N)/(N (1 - z)^2)))]
+    (Fejer-weighted geometric series, derived), which includes leakage.
+    Returns NaN where the scheme is unstable (r >= 2) or f_c <= 0.
+    """
+    if scheme not in SCHEMES:
+        raise ValueError(f"scheme must be one of {SCHEMES}, got {scheme!r}")
+    f = np.asarray(f, dtype=float)
+    r = 2.0 * math.pi * fc * step_dt
+    if not (0.0 < r < 2.0):
+        return np.full(f.shape, np.nan)
+    a = 1.0 - r
+    c = a ** every
+    var = diffusion / (2.0 * math.pi * fc)
+    if scheme == "euler-maruyama":
+        var /= 1.0 - r / 2.0
+        rho1 = c
+    else:
+        rho1 = (1.0 - r / 2.0) * a ** (every - 1)
+    T = step_dt * every
+    e = np.exp(-2j * math.pi * f * T)
+    z = c * e
+    h = 1.0 / (1.0 - z)
+    if segment_length is not None:
+        h = h - (1.0 - z ** int(segment_length)) * h * h / segment_length
+    return T * var * (1.0 + 2.0 * rho1 * (e * h).real)
+
+
+def scheme_model(scheme, step_dt, every=1, segment_length=None):
+    """(names, shape) model for :func:`fit_psd_model`: :func:`scheme_psd` with unit D, parameter fc."""
+    if scheme not in SCHEMES:
+        raise ValueError(f"scheme must be one of {SCHEMES}, got {scheme!r}")
+    step_dt = _positive_opt("step_dt", step_dt, allow_none=False)
+    if isinstance(every, bool) or int(every) != every or every < 1:
+        raise ValueError(f"every must be an integer >= 1, got {every!r}")
+    if segment_length is not None and (int(segment_length) != segment_length or segment_length < 2):
+        raise ValueError(f"segment_length must be an integer >= 2 or None, got {segment_length!r}")
+    every = int(every)
+    return (("fc",), lambda f, p, dt, na: scheme_psd(f, p[0], 1.0, step_dt, every, scheme, segment_length))
+
 
 def _nll_profile(logp, f, P, n, shape):
     h = shape(np.exp(logp))
@@ -101,9 +171,12 @@ def fit_psd_model(f, P, count, model, dt=None, n_alias=50, start=None):
     ----------
     f, P : arrays, Hz and m^2/Hz (two-sided)
     count : int or array, gamma shape of each value (periodograms averaged)
-    model : one of :data:`MODELS`. "lorentzian"/"aliased"/"blurred" have
-        amplitude D (m^2/s) and corner frequency fc (Hz); "oscillator" and
-        "aliased-oscillator" have amplitude var (m^2), resonance f0 (Hz), Q.
+    model : one of :data:`MODELS`, or a pair (names, shape) such as
+        :func:`scheme_model` returns, where ``shape(f, params, dt, n_alias)``
+        is the model with unit amplitude. "lorentzian"/"aliased"/"blurred"
+        (and one-parameter custom models) have amplitude D (m^2/s) and corner
+        frequency fc (Hz); "oscillator" and "aliased-oscillator" have
+        amplitude var (m^2), resonance f0 (Hz), Q.
     dt : float, s, sampling interval (needed by aliased models)
     start : initial shape parameters (optional; a grid search is used otherwise)
 
@@ -112,8 +185,11 @@ def fit_psd_model(f, P, count, model, dt=None, n_alias=50, start=None):
     dict: ``params`` (amplitude first), ``errors``, ``covariance`` (of the
     parameters, from the Fisher information), ``names``, ``nll``.
     """
-    if model not in MODELS:
-        raise ValueError(f"model must be one of {sorted(MODELS)}, got {model!r}")
+    custom = isinstance(model, tuple)
+    if custom and not (len(model) == 2 and callable(model[1]) and 1 <= len(model[0]) <= 2):
+        raise ValueError(f"a custom model must be a pair (names, shape) with 1 or 2 names, got {model!r}")
+    if not custom and model not in MODELS:
+        raise ValueError(f"model must be one of {sorted(MODELS)} or a (names, shape) pair, got {model!r}")
     f = np.asarray(f, dtype=float)
     P = np.asarray(P, dtype=float)
     n = np.broadcast_to(np.asarray(count, dtype=float), f.shape)
@@ -121,24 +197,30 @@ def fit_psd_model(f, P, count, model, dt=None, n_alias=50, start=None):
         raise ValueError(f"f and P must be 1D of equal length >= 4, got {f.shape} and {P.shape}")
     if np.any(P <= 0) or np.any(f <= 0) or np.any(n <= 0):
         raise ValueError("f, P and count must be > 0 (exclude the f = 0 bin)")
-    names, unit = MODELS[model]
-    if model in ("aliased", "blurred", "aliased-oscillator") and not (dt and dt > 0):
+    names, unit = model if custom else MODELS[model]
+    if not custom and model in ("aliased", "blurred", "aliased-oscillator") and not (dt and dt > 0):
         raise ValueError(f"dt (s) is required by model {model!r}, got {dt!r}")
     shape = lambda p: unit(f, p, dt, n_alias)  # noqa: E731
     obj = lambda lp: _nll_profile(lp, f, P, n, shape)[0]  # noqa: E731
-    if start is None:
-        fgrid = np.geomspace(f[0] / 30.0, f[-1] * 30.0, 61)
-        if len(names) == 1:
-            cands = [(math.log(v),) for v in fgrid]
-        else:
+    if len(names) == 1 and start is None:
+        # one shape parameter: grid in log fc, then a bounded scalar search between the grid neighbours
+        lgrid = np.log(np.geomspace(f[0] / 30.0, f[-1] * 30.0, 61))
+        vals = [obj(np.array([v])) for v in lgrid]
+        i = int(np.argmin(vals))
+        lo, hi = lgrid[max(i - 1, 0)], lgrid[min(i + 1, lgrid.size - 1)]
+        res = optimize.minimize_scalar(lambda v: obj(np.array([v])), bounds=(lo, hi), method="bounded",
+                                       options={"xatol": 1e-10})
+        logp = np.array([res.x])
+    else:
+        if start is None:
             cands = [(math.log(v), math.log(q)) for v in np.geomspace(f[0], f[-1], 41)
                      for q in np.geomspace(0.05, 3e3, 25)]
-        x0 = np.array(min(cands, key=lambda c: obj(np.array(c))))
-    else:
-        x0 = np.log(np.asarray(start, dtype=float))
-    res = optimize.minimize(obj, x0, method="Nelder-Mead",
-                            options={"xatol": 1e-10, "fatol": 1e-12, "maxiter": 4000})
-    logp = res.x
+            x0 = np.array(min(cands, key=lambda c: obj(np.array(c))))
+        else:
+            x0 = np.log(np.asarray(start, dtype=float))
+        res = optimize.minimize(obj, x0, method="Nelder-Mead",
+                                options={"xatol": 1e-10, "fatol": 1e-12, "maxiter": 4000})
+        logp = res.x
     nll, amp = _nll_profile(logp, f, P, n, shape)
     theta = np.concatenate([[math.log(amp)], logp])
 
@@ -194,8 +276,22 @@ class LorentzianFit(_SpectrumFit):
     Parameters
     ----------
     dt : float, s, time between frames
-    model : "aliased" (instantaneous samples, [1]), "blurred" (full-frame
-        exposure) or "lorentzian" (no aliasing)
+    model : "aliased" (instantaneous samples of the continuous process, [1]),
+        "blurred" (full-frame exposure), "lorentzian" (no aliasing), or a
+        scheme in :data:`SCHEMES` ("euler-maruyama", "leimkuhler-matthews")
+        for data from that integrator: the exact spectrum of its recorded
+        positions (:func:`scheme_psd`), so that fc and D are the physical
+        kappa/(2 pi gamma) and kT/gamma. Leimkuhler-Matthews recorded every
+        step has a spectral zero at the Nyquist frequency, where leakage
+        dominates and is correlated across frequencies: use f_max <= 1/(4 dt).
+        Segment edges add such correlated noise everywhere at a relative level
+        ~ tau_f^2/N (tau_f: relaxation time in frames): prefer N >~ 16 tau_f^2.
+    step_dt : float or None, s, integration step (scheme models only;
+        default dt/every); every : int or None, steps per frame (scheme
+        models; default dt/step_dt, which must then be an integer, or 1).
+    leakage : bool, scheme models only: fit the exact expected periodogram of
+        a segment (finite-segment leakage included, the default) rather than
+        the spectrum of an infinite record.
     segment_length : int or None (default: largest power of two <= frames/16, <= 2^15)
     f_min, f_max : float or None, Hz, fitted band
     kT : float or None, J; friction : float or None, kg/s. With friction,
@@ -207,13 +303,17 @@ class LorentzianFit(_SpectrumFit):
     ----------------------
     corner_frequency_, corner_frequency_err_ (Hz), diffusion_, diffusion_err_
     (m^2/s), covariance_ (of (D, fc)), stiffness_, stiffness_err_, friction_,
-    friction_err_ (when computable), frequencies_, psd_, psd_count_.
+    friction_err_ (when computable), frequencies_, psd_, psd_count_,
+    segment_length_; scheme models also step_dt_ and every_.
     """
 
     def __init__(self, dt, model="aliased", segment_length=None, f_min=None, f_max=None,
-                 kT=None, friction=None, axis=None, start=0):
+                 kT=None, friction=None, axis=None, start=0, step_dt=None, every=None, leakage=True):
         self.dt = dt
         self.model = model
+        self.step_dt = step_dt
+        self.every = every
+        self.leakage = leakage
         self.segment_length = segment_length
         self.f_min = f_min
         self.f_max = f_max
@@ -222,17 +322,50 @@ class LorentzianFit(_SpectrumFit):
         self.axis = axis
         self.start = start
 
+    def _steps(self):
+        """Validated (step_dt, every) of a scheme model; None for the continuous-process models."""
+        if self.model in ("aliased", "blurred", "lorentzian"):
+            return None
+        if self.model not in SCHEMES:
+            raise ValueError(f"model must be 'aliased', 'blurred', 'lorentzian' or one of {SCHEMES}, "
+                             f"got {self.model!r}")
+        dt = _positive_opt("dt", self.dt, allow_none=False)
+        step = _positive_opt("step_dt", self.step_dt)
+        every = self.every
+        if every is None:
+            every = 1 if step is None else round(dt / step)
+        if isinstance(every, bool) or not isinstance(every, (int, np.integer)) or every < 1:
+            raise ValueError(f"every must be an integer >= 1, got {self.every!r}")
+        step = dt / every if step is None else step
+        if not math.isclose(step * every, dt, rel_tol=1e-9):
+            raise ValueError(f"dt = {dt!r} s must equal step_dt * every = {step!r} * {every!r}")
+        return step, int(every)
+
+    def _model(self, segment_length):
+        """The model handed to :func:`fit_psd_model` (a name or a scheme's (names, shape))."""
+        steps = self._steps()
+        if steps is None:
+            return self.model
+        if self.leakage and segment_length is None:
+            raise ValueError("leakage=True needs the segment length: set segment_length or use leakage=False")
+        self.step_dt_, self.every_ = steps
+        return scheme_model(self.model, *steps, segment_length if self.leakage else None)
+
     def fit(self, positions):
-        if self.model not in ("aliased", "blurred", "lorentzian"):
-            raise ValueError(f"model must be 'aliased', 'blurred' or 'lorentzian', got {self.model!r}")
+        self._steps()  # validate the options before reading the data
         kT = _positive_opt("kT", self.kT)
         gamma = _positive_opt("friction", self.friction)
         self._periodogram(positions)
         return self.fit_spectrum(self.frequencies_, self.psd_, self.psd_count_, kT, gamma)
 
     def fit_spectrum(self, f, P, count, kT=None, friction=None):
-        """Fit given periodogram values (used by :meth:`fit`; also for expected spectra)."""
-        r = fit_psd_model(f, P, count, self.model, self.dt)
+        """Fit given periodogram values (used by :meth:`fit`; also for expected spectra).
+
+        Scheme models with leakage use the segment length of the last
+        :meth:`fit`, else ``segment_length``.
+        """
+        self._shape = self._model(getattr(self, "segment_length_", None) or self.segment_length)
+        r = fit_psd_model(f, P, count, self._shape, self.dt)
         (D, fc), cov = r["params"], r["covariance"]
         self.diffusion_, self.corner_frequency_ = D, fc
         self.diffusion_err_, self.corner_frequency_err_ = r["errors"]
@@ -251,7 +384,7 @@ class LorentzianFit(_SpectrumFit):
     def predict(self, f):
         """Fitted two-sided PSD at frequencies f (Hz), m^2/Hz."""
         self._require_fitted("corner_frequency_")
-        unit = MODELS[self.model][1]
+        unit = (MODELS[self._shape] if isinstance(self._shape, str) else self._shape)[1]
         return self.diffusion_ * unit(np.asarray(f, dtype=float), (self.corner_frequency_,), self.dt, 0)
 
 
