@@ -128,15 +128,16 @@ def step_costs(n_particles, n_steps, repeat):
     out_x = np.empty((1, n_particles, d))
     out_v = np.empty_like(out_x)
     k0, k1 = KEY
+    no_user_params = np.zeros(0)
 
     def under():
         schemes.advance_underdamped(x, v, 0, n_steps, 0.1, 1.0, 1.0, friction, letters,
-                                    fractions, k0, k1, codes, params, every, out_x, out_v,
-                                    True, status)
+                                    fractions, k0, k1, codes, params, no_user_params, every,
+                                    out_x, out_v, True, status)
 
     def over():
         schemes.advance_overdamped(x, 0, n_steps, 0.1, 1.0, friction, False, k0, k1,
-                                   codes, params, every, out_x, status)
+                                   codes, params, no_user_params, every, out_x, status)
 
     scale = 1e9 / (n_particles * n_steps)
     return best(under, repeat) * scale, best(over, repeat) * scale
