@@ -5,6 +5,7 @@ contributes only its compiled step (:mod:`langsim.kernels.schemes`).
 """
 import os
 import signal
+import sys
 import threading
 import time as _time
 import warnings
@@ -184,6 +185,21 @@ class Engine:
             x = np.array(resume.positions, dtype=np.float64, order="C")
             v = (np.array(resume.velocities, dtype=np.float64, order="C")
                  if resume.velocities is not None else np.zeros_like(x))
+        # a call of no steps loads (or, the first time, compiles) the kernel,
+        # so that compile time is neither in the timing nor in the progress bar
+        prepare0 = _time.perf_counter()
+        notice = None
+        if self.progress is True:
+            notice = threading.Timer(2.0, lambda: print(
+                "compiling the kernels for this kind of run (once per machine; about a minute)",
+                file=sys.stderr, flush=True))
+            notice.start()
+        nothing = np.empty((0, p.count, p.dimensions))
+        try:
+            self._advance(x, v, step, 0, key, self.codes, self.params, out.every, nothing, nothing)
+        finally:
+            if notice is not None:
+                notice.cancel()
         if self.threads is not None:
             import numba
             previous = numba.get_num_threads()
@@ -240,7 +256,7 @@ class Engine:
                 numba.set_num_threads(previous)
         wall = _time.perf_counter() - wall0
         done = step - steps0
-        self.stats = {"wall_time": wall, "steps": done,
+        self.stats = {"wall_time": wall, "steps": done, "prepare_time": wall0 - prepare0,
                       "ns_per_particle_step": 1e9 * wall / max(1, done * p.count)}
         traj = self.sink.finish(status)
         traj.stats = self.stats
