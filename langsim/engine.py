@@ -128,11 +128,13 @@ class Engine:
         return None
 
     def _burn_in(self, x, v):
-        """Run the dynamics for the burn-in without recording, static terms."""
+        """Run the dynamics for the burn-in without recording, static terms.
+
+        Returns None, or the Status of a blow-up during the burn-in."""
         spec = self.spec
         n_steps = int(round(spec.particles.burn_in / spec.dynamics.dt))
         if n_steps <= 0:
-            return
+            return None
         static = [t.static() for t in spec.terms]
         codes, params = _pot.builtin_rows(static, spec.particles.dimensions)
         empty = np.empty((0,) + x.shape)
@@ -143,10 +145,11 @@ class Engine:
             k = min(chunk, n_steps - done)
             fail = self._advance(x, v, done, k, key, codes, params, NO_RECORD, empty, empty)
             if fail is not None:
-                raise FloatingPointError(
-                    f"burn-in blew up: particle {fail[0]} non-finite at burn-in step {fail[1]}; "
-                    "reduce [dynamics] dt or check the potential")
+                return Status(False, f"non-finite position of particle {fail[0]} at step "
+                                     f"{fail[1]} of the burn-in; no frames recorded (reduce "
+                                     "[dynamics] dt or check the potential)", fail[1], fail[0])
             done += k
+        return None
 
     # --------------------------------------------------------------------- run
     def run(self):
@@ -176,7 +179,14 @@ class Engine:
             v = np.ascontiguousarray(initial.initial_velocities(spec, rng)
                                      if dyn.regime == "underdamped"
                                      else np.zeros((p.count, p.dimensions)), dtype=np.float64)
-            self._burn_in(x, v)
+            failed = self._burn_in(x, v)
+            if failed is not None:
+                warnings.warn(failed.message, RunWarning, stacklevel=4)
+                self.stats = {"wall_time": 0.0, "steps": 0, "prepare_time": 0.0,
+                              "ns_per_particle_step": float("nan")}
+                traj = self.sink.finish(failed)
+                traj.stats = self.stats
+                return traj
             self.sink.write(0, np.array([0.0]), x[None], v[None] if out.velocities else None)
             step, frame = 0, 1
             self.sink.checkpoint(0, x, v if dyn.regime == "underdamped" else None)

@@ -266,3 +266,14 @@ def test_equilibrium_start_in_a_basin_or_a_period(term, lo, hi, energy):
     # rejected: the density at twice the temperature
     hot = _exact_cdf(lambda s: energy(s) / 2, lo, hi)
     assert stats.kstest(x0, np.vectorize(hot)).pvalue < 1e-6
+
+
+def test_blow_up_during_burn_in_is_a_result_with_no_frames():
+    """A step far too large for a user term (no built-in curvature to guard it)."""
+    cfg = {"seed": 2, "particles": {"friction": GAMMA, "count": 10},
+           "potential": [{"type": "function", "function": _quartic_trap}],
+           "dynamics": {"dt": 1e-3, "steps": 100}}
+    with pytest.warns(engine.RunWarning, match="of the burn-in; no frames recorded"):
+        traj = langsim.run(cfg, progress=False)
+    assert not traj.status.complete and traj.n_frames == 0
+    assert traj.status.particle >= 0
