@@ -32,7 +32,6 @@ CHUNK_PARTICLE_STEPS = 20_000_000
 NO_RECORD = 2**62
 
 
-
 class RunWarning(UserWarning):
     """A run ended early (numerical blow-up); its frames so far are kept."""
 
