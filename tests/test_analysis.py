@@ -350,3 +350,63 @@ def test_scheme_fit_recovers_physical_corner_frequency_and_D(scheme, every):
         assert old.corner_frequency_ < 0.7 * fc
     with pytest.raises(ValueError, match="step_dt"):
         LorentzianFit(T, model=scheme, step_dt=0.3 * dt, every=every).fit(x)
+
+
+def baoab_series(seed, k, m, g, kT, h, every, frames, chains):
+    """Positions of BAOAB (B A O A B, exact O step) in U = k q^2/2, recorded every `every` steps.
+
+    Started from the exact stationary law of the full-step state: q ~ N(0, kT/k),
+    v ~ N(0, (kT/m)(1 - w0^2 h^2/4)) independent (Leimkuhler & Matthews 2013, derived).
+    """
+    r = rng(seed)
+    w2, c = k / m, math.exp(-g * h / m)
+    s = math.sqrt((1 - c * c) * kT / m)
+    q = r.standard_normal(chains) * math.sqrt(kT / k)
+    v = r.standard_normal(chains) * math.sqrt(kT / m * (1 - w2 * h * h / 4))
+    out = np.empty((frames, chains))
+    for i in range(frames):
+        for _ in range(every):
+            v -= 0.5 * h * w2 * q
+            q += 0.5 * h * v
+            v = c * v + s * r.standard_normal(chains)
+            q += 0.5 * h * v
+            v -= 0.5 * h * w2 * q
+        out[i] = q
+    return out
+
+
+CANT = dict(k=0.1, m=2.53303e-11, g=1.59155e-7, kT=k_B * 295.15, h=1e-6, every=5)  # configs/cantilever.toml
+
+
+def test_baoab_psd_is_the_exact_expected_periodogram():
+    # reference: var (M^n)_00 from theory.baoab_position_autocorrelation (matrix powers) through the
+    # Fejer sum theory.expected_periodogram (derived, exact)
+    from langsim.analysis.spectra import baoab_model, baoab_psd, fit_psd_model
+    k, m, g, kT, h, every = CANT.values()
+    f0, Q, var, T, N = math.sqrt(k / m) / (2 * math.pi), math.sqrt(k * m) / g, kT / k, h * every, 512
+    ref = th.expected_periodogram(var * th.baoab_position_autocorrelation(np.arange(N) * every, k, m, g, h), T)[1:]
+    f = np.arange(1, N // 2 + 1) / (N * T)
+    assert np.allclose(baoab_psd(f, f0, Q, var, h, every, N), ref, rtol=1e-9, atol=0)
+    assert not np.allclose(baoab_psd(f, f0, 1.01 * Q, var, h, every, N), ref, rtol=1e-3, atol=0)
+    # infinite record: the N -> infinity limit of the leakage-included form (leakage falls as 1/N)
+    inf = baoab_psd(f, f0, Q, var, h, every)
+    e20, e22 = (np.max(np.abs(baoab_psd(f, f0, Q, var, h, every, n) / inf - 1)) for n in (2**20, 2**22))
+    assert e22 < 2e-3 and 3.5 < e20 / e22 < 4.5
+    # fitted to its own exact expectation, the ML fit returns the configured (var, f0, Q): no bias
+    r = fit_psd_model(f, ref, 100, baoab_model(h, every, N))
+    assert np.allclose(r["params"], [var, f0, Q], rtol=1e-6)
+
+
+def test_baoab_fit_recovers_f0_q_and_stiffness():
+    from langsim.analysis.spectra import baoab_model, blocked_periodogram, fit_psd_model
+    k, m, g, kT, h, every = CANT.values()
+    f0, Q = math.sqrt(k / m) / (2 * math.pi), math.sqrt(k * m) / g
+    x = baoab_series(21, k, m, g, kT, h, every, 2**14, 32)
+    f, P, n = blocked_periodogram(x, h * every, 2**13)
+    keep = f <= 2 * f0  # band used by checks._baoab_psd_rows
+    r = fit_psd_model(f[keep], P[keep], n, baoab_model(h, every, 2**13), start=(0.9 * f0, 5.0), tol=1e-8)
+    (var, f0m, Qm), (ve, fe, Qe) = r["params"], r["errors"]
+    assert within(f0m, fe, f0) and within(Qm, Qe, Q)
+    assert within(kT / var, kT / var * ve / var, k)
+    assert not within(Qm, Qe, 0.9 * Q) and not within(kT / var, kT / var * ve / var, 0.9 * k)
+    assert not within(f0m, fe, 1.01 * f0)

@@ -192,3 +192,21 @@ def test_engine_lm_psd_reports_the_physical_corner_frequency():
     bad["dynamics"]["dt"] *= 2
     t2 = Traj(np.asarray(traj.positions), bad)
     assert "corner frequency x" in failed(check(t2))
+
+
+def test_engine_underdamped_psd_rows():
+    # configs/cantilever.toml shortened: f0 = sqrt(k/m)/(2 pi), Q = sqrt(k m)/gamma, k from kT/variance
+    import langsim
+    cfg = {"seed": 12, "particles": {"count": 1, "dimensions": 1, "mass": 2.53303e-11, "friction": 1.59155e-7},
+           "medium": {"temperature": 295.15}, "potential": [{"type": "harmonic", "stiffness": 0.1}],
+           "dynamics": {"regime": "underdamped", "scheme": "baoab", "dt": 1e-6, "duration": 0.4},
+           "output": {"every": 5, "velocities": True}}
+    traj = langsim.run(cfg, progress=False)
+    rep = check(traj)
+    rows = {r.quantity: r for r in rep.rows}
+    assert rep.passed, rep.format_table()
+    assert rows["resonance frequency x"].predicted == pytest.approx(1e4, rel=1e-5)
+    assert rows["quality factor x"].predicted == pytest.approx(10.0, rel=1e-5)
+    assert rows["stiffness x (PSD)"].status == "pass"
+    bad = check(Traj(1.3 * np.asarray(traj.positions), traj.config))
+    assert {"stiffness x (PSD)", "variance x"} <= failed(bad)

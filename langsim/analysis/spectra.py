@@ -32,8 +32,8 @@ from scipy import optimize
 from .. import theory
 from .stats import Estimator, FrameSource, single_axis
 
-__all__ = ["blocked_periodogram", "fit_psd_model", "scheme_psd", "scheme_model", "LorentzianFit",
-           "OscillatorFit", "MODELS", "SCHEMES"]
+__all__ = ["blocked_periodogram", "fit_psd_model", "scheme_psd", "scheme_model", "baoab_psd", "baoab_model",
+           "LorentzianFit", "OscillatorFit", "MODELS", "SCHEMES"]
 
 
 def blocked_periodogram(positions, dt, segment_length, start=0, axis=None):
@@ -143,17 +143,93 @@ def scheme_psd(f, fc, diffusion, step_dt, every, scheme, segment_length=None):
     return T * var * (1.0 + 2.0 * rho1 * (e * h).real)
 
 
-def scheme_model(scheme, step_dt, every=1, segment_length=None):
-    """(names, shape) model for :func:`fit_psd_model`: :func:`scheme_psd` with unit D, parameter fc."""
-    if scheme not in SCHEMES:
-        raise ValueError(f"scheme must be one of {SCHEMES}, got {scheme!r}")
+def _model_steps(step_dt, every, segment_length):
+    """Validated (step_dt, every) of a scheme model; checks segment_length too."""
     step_dt = _positive_opt("step_dt", step_dt, allow_none=False)
     if isinstance(every, bool) or int(every) != every or every < 1:
         raise ValueError(f"every must be an integer >= 1, got {every!r}")
     if segment_length is not None and (int(segment_length) != segment_length or segment_length < 2):
         raise ValueError(f"segment_length must be an integer >= 2 or None, got {segment_length!r}")
-    every = int(every)
+    return step_dt, int(every)
+
+
+def scheme_model(scheme, step_dt, every=1, segment_length=None):
+    """(names, shape) model for :func:`fit_psd_model`: :func:`scheme_psd` with unit D, parameter fc."""
+    if scheme not in SCHEMES:
+        raise ValueError(f"scheme must be one of {SCHEMES}, got {scheme!r}")
+    step_dt, every = _model_steps(step_dt, every, segment_length)
     return (("fc",), lambda f, p, dt, na: scheme_psd(f, p[0], 1.0, step_dt, every, scheme, segment_length))
+
+
+def _baoab_frame_map(f0, Q, step_dt, every):
+    """BAOAB's mean one-step map M for (q, v) with w0 = 2 pi f0, gamma/m = w0/Q, raised to ``every``.
+
+    Same product B A O A B as :func:`langsim.theory.baoab_transition_matrix`,
+    written in (f0, Q) (it depends on k, m, gamma only through k/m and gamma/m).
+    Returns None where BAOAB is unstable (w0 dt >= 2) or f0, Q <= 0.
+    """
+    w0 = 2.0 * math.pi * f0
+    if not (f0 > 0 and Q > 0 and w0 * step_dt < 2.0):
+        return None
+    h = step_dt
+    c = math.exp(-w0 * h / Q)
+    B = np.array([[1.0, 0.0], [-h * w0 * w0 / 2.0, 1.0]])
+    A = np.array([[1.0, h / 2.0], [0.0, 1.0]])
+    M = B @ A @ np.diag([1.0, c]) @ A @ B
+    return np.linalg.matrix_power(M, int(every))
+
+
+def baoab_psd(f, f0, Q, variance, step_dt, every, segment_length=None):
+    """Two-sided spectrum of BAOAB's recorded positions in a harmonic well, m^2/Hz.
+
+    For U = k q^2/2, BAOAB's full-step state s = (q, v) obeys
+    s' = M s + noise with M = B A O A B (:func:`langsim.theory.baoab_transition_matrix`);
+    its stationary covariance is diagonal (<q v> = 0), so the position
+    autocovariance at a lag of n steps is var (M^n)_00 with var = kT/k exactly
+    (Leimkuhler & Matthews 2013; :func:`langsim.theory.baoab_position_autocorrelation`).
+    Recorded every ``every`` steps (T = every dt), the frame autocovariance is
+    g_j = var (A^j)_00 with A = M^every. Parameters are the physical
+    f0 = sqrt(k/m)/(2 pi), Q = sqrt(k m)/gamma and var = kT/k.
+
+    Without ``segment_length`` this is S(f) = T var [1 + 2 Re (B (I - B)^-1)_00],
+    B = A e^{-iw}, w = 2 pi f T (matrix geometric series). With
+    ``segment_length`` N it is the exact expectation of the periodogram of N
+    frames, (T/N) sum_{|j|<N} (N - |j|) g_j e^{-iwj}
+    = T var [1 + 2 Re (B (I - B)^-1 - B (I - B^N)(I - B)^-2 / N)_00]
+    (Fejer-weighted matrix geometric series, derived; all factors commute),
+    which includes leakage. Returns NaN where BAOAB is unstable (2 pi f0 dt >= 2).
+    """
+    f = np.asarray(f, dtype=float)
+    Af = _baoab_frame_map(f0, Q, step_dt, every)
+    if Af is None:
+        return np.full(f.shape, np.nan)
+    T = step_dt * every
+    u = np.exp(-2j * math.pi * f * T)
+    a, b, c, d = Af[0, 0], Af[0, 1], Af[1, 0], Af[1, 1]
+    det = a * d - b * c
+    dI = 1.0 - u * (a + d) + u * u * det  # det(I - B)
+    # (I - B)^-1 = adj/dI with adj = [[1 - u d, u b], [u c, 1 - u a]]; (B (I - B)^-1)_00 = u (a - u det)/dI
+    g00 = u * (a - u * det) / dI
+    if segment_length is not None:
+        N = int(segment_length)
+        AN = np.linalg.matrix_power(Af, N)
+        uN = u ** N
+        # C = B (I - B^N) entries, then (C adj^2)_00 / dI^2
+        e00, e01 = 1.0 - uN * AN[0, 0], -uN * AN[0, 1]
+        e10, e11 = -uN * AN[1, 0], 1.0 - uN * AN[1, 1]
+        c00 = u * (a * e00 + b * e10)
+        c01 = u * (a * e01 + b * e11)
+        r00, r01, r10, r11 = 1.0 - u * d, u * b, u * c, 1.0 - u * a
+        s00 = r00 * r00 + r01 * r10  # (adj^2)_00 and _10
+        s10 = r10 * r00 + r11 * r10
+        g00 = g00 - (c00 * s00 + c01 * s10) / (dI * dI) / N
+    return T * variance * (1.0 + 2.0 * g00.real)
+
+
+def baoab_model(step_dt, every=1, segment_length=None):
+    """(names, shape) model for :func:`fit_psd_model`: :func:`baoab_psd` with unit variance, parameters (f0, Q)."""
+    step_dt, every = _model_steps(step_dt, every, segment_length)
+    return (("f0", "Q"), lambda f, p, dt, na: baoab_psd(f, p[0], p[1], 1.0, step_dt, every, segment_length))
 
 
 def _nll_profile(logp, f, P, n, shape):
@@ -164,7 +240,7 @@ def _nll_profile(logp, f, P, n, shape):
     return float(np.sum(n * (np.log(amp * h) + 1.0))), amp
 
 
-def fit_psd_model(f, P, count, model, dt=None, n_alias=50, start=None):
+def fit_psd_model(f, P, count, model, dt=None, n_alias=50, start=None, tol=None):
     """Maximum-likelihood fit of a PSD model to averaged periodogram values.
 
     Parameters
@@ -179,6 +255,8 @@ def fit_psd_model(f, P, count, model, dt=None, n_alias=50, start=None):
         amplitude var (m^2), resonance f0 (Hz), Q.
     dt : float, s, sampling interval (needed by aliased models)
     start : initial shape parameters (optional; a grid search is used otherwise)
+    tol : float or None, two-parameter models: stop the simplex search when
+        the log-parameters agree to ``tol`` and -log L to ``tol`` (default 1e-10, 1e-12)
 
     Returns
     -------
@@ -219,7 +297,7 @@ def fit_psd_model(f, P, count, model, dt=None, n_alias=50, start=None):
         else:
             x0 = np.log(np.asarray(start, dtype=float))
         res = optimize.minimize(obj, x0, method="Nelder-Mead",
-                                options={"xatol": 1e-10, "fatol": 1e-12, "maxiter": 4000})
+                                options={"xatol": tol or 1e-10, "fatol": tol or 1e-12, "maxiter": 4000})
         logp = res.x
     nll, amp = _nll_profile(logp, f, P, n, shape)
     theta = np.concatenate([[math.log(amp)], logp])
