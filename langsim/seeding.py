@@ -32,16 +32,6 @@ def initial_rng(seed):
     return np.random.Generator(np.random.Philox(child))
 
 
-def sweep_seeds(seed, n):
-    """Seeds for the ``n`` points of a sweep: ``SeedSequence(seed).spawn(n)``.
-
-    Each child is reduced to a 63-bit integer seed (its first generated word),
-    so that every point can be rerun on its own from the recorded integer.
-    """
-    children = np.random.SeedSequence(seed).spawn(n)
-    return [int(c.generate_state(1, dtype=np.uint64)[0]) & MAX_SEED for c in children]
-
-
 def burn_in_key(seed):
     """Philox key words of the burn-in, independent of the recorded run's noise.
 
