@@ -1,4 +1,4 @@
-"""Benchmark of the analysis layer: FFT MSD and blocked PSD of a 10^7-frame series.
+"""Benchmark of the analysis layer: FFT MSD and segment-averaged PSD of a 10^7-frame series.
 
 Beside them, the direct O(N * lags) MSD on a shorter series in the same run, and
 the agreement of the two MSD algorithms. Prints a table and writes
@@ -34,7 +34,7 @@ def main(n_long=10**7, n_short=2 * 10**4):
     m_fft, t = timed(msd_fft, x, 10**5)
     rows.append(("MSD by FFT, lags <= 1e5", n_long, t))
     fit, t = timed(lambda: LorentzianFit(1e-4, segment_length=1 << 14).fit(x))
-    rows.append(("blocked PSD + aliased Lorentzian ML fit", n_long, t))
+    rows.append(("segment-averaged PSD + aliased Lorentzian ML fit", n_long, t))
     xs = x[:n_short]
     d, t_direct = timed(msd_direct, xs, n_short // 2)
     f, t_fft = timed(msd_fft, xs, n_short // 2)

@@ -15,6 +15,8 @@ Sources of the predictions are named in each row; see :mod:`langsim.theory`.
 import json
 import math
 import os
+import re
+import textwrap
 from dataclasses import asdict, dataclass, field
 
 import numpy as np
@@ -23,7 +25,7 @@ from scipy import optimize
 from . import theory
 from .analysis import (BoltzmannTest, EscapeRate, InsufficientDataError, LorentzianFit, axis_moments,
                        mean_msd, msd_at_lags)
-from .analysis.spectra import SCHEMES, baoab_model, baoab_psd, blocked_periodogram, fit_psd_model
+from .analysis.spectra import SCHEMES, baoab_model, baoab_psd, segment_averaged_periodogram, fit_psd_model
 from .analysis.stats import FrameSource
 from .units import k_B
 
@@ -43,7 +45,12 @@ SRC_MM = "Mel'nikov & Meshkov 1986, J. Chem. Phys. 85, 1018; Mel'nikov 1991, Phy
 
 @dataclass
 class Row:
-    """One line of a report. ``status`` is "pass", "fail", "info" or "skip"."""
+    """One line of a report. ``status`` is "pass", "fail", "info" or "skip".
+
+    ``quantity`` is the name people read; ``key`` is the stable name scripts
+    select rows by (``variance.x``, ``corner_frequency.y``, ``escape_rate.ab``);
+    without one it is derived from the quantity (:func:`row_key`). ``unit`` is SI.
+    """
     quantity: str
     measured: float = None
     error: float = None
@@ -54,6 +61,22 @@ class Row:
     source: str = ""
     unit: str = ""
     note: str = ""
+    key: str = ""
+
+    def __post_init__(self):
+        if not self.key:
+            self.key = row_key(self.quantity)
+
+
+def row_key(quantity):
+    """A script-friendly key from a quantity name: ``"variance x"`` -> ``"variance.x"``.
+
+    Lower case words joined by ``_``; a trailing axis letter becomes ``.x``/``.y``/``.z``.
+    """
+    words = re.findall(r"[a-z0-9]+", quantity.lower())
+    if len(words) > 1 and words[-1] in AXES:
+        return "_".join(words[:-1]) + "." + words[-1]
+    return "_".join(words)
 
 
 @dataclass
@@ -82,22 +105,73 @@ class CheckReport:
     def to_json(self, indent=2):
         return json.dumps(self.to_dict(), indent=indent)
 
-    def format_table(self):
-        """Plain-text table: quantity, measured +- error, predicted, z, status, formula/source."""
-        def num(v):
-            return "" if v is None or (isinstance(v, float) and not math.isfinite(v)) else f"{v:.6g}"
-        lines = [f"{'quantity':<34} {'measured':>26} {'predicted':>13} {'z':>7}  status  formula [source]"]
+    def format_table(self, width=80):
+        """Plain-text table that fits ``width`` columns.
+
+        One line per row: quantity, measured +- error, predicted, unit, z,
+        status and a note number; numbers in the units people read (nm, um^2/s,
+        pN/nm, Hz, see ``DISPLAY_UNITS``; ``to_dict`` stays SI). Formula and
+        source of each row are numbered notes under the table, each given once.
+        """
+        refs, notes, body = {}, [], []
         for r in self.rows:
-            meas = num(r.measured) + (f" +- {r.error:.2g}" if r.error is not None else "")
-            z = f"{r.z:+.2f}" if r.z is not None else ""
-            extra = f"{r.formula} [{r.source}]" + (f"; {r.note}" if r.note else "")
-            lines.append(f"{r.quantity:<34} {meas:>26} {num(r.predicted):>13} {z:>7}  "
-                         f"{r.status:<6}  {extra}")
+            unit, scale = DISPLAY_UNITS.get(r.unit, (r.unit, 1.0))
+            meas = _num(r.measured, scale, _digits(r.measured, r.error)) + (
+                f" ± {_num(r.error, scale, 2)}" if r.error is not None else "")
+            text = r.formula + (f" [{r.source}]" if r.source else "")
+            ref = refs.setdefault(text, len(refs) + 1) if text else None
+            if ref == len(notes) + 1:
+                notes.append(text)
+            body.append((r.quantity, meas, _num(r.predicted, scale), unit,
+                         f"{r.z:+.2f}" if r.z is not None else "", r.status,
+                         f"[{ref}]" if ref else "", r.note))
+        head = ("quantity", "measured ± error", "predicted", "unit", "z", "status", "")
+        widths = [max(len(h), *(len(b[i]) for b in body)) if body else len(h) for i, h in enumerate(head)]
+        right = (False, True, True, False, True, False, False)
+        gap = 2 if sum(widths) + 2 * 6 <= width else 1
+        # too wide still: the quantity column wraps (long names take two lines)
+        widths[0] = max(16, min(widths[0], width - sum(widths[1:]) - gap * 6))
+
+        def line(cells):
+            first, *rest = textwrap.wrap(cells[0], widths[0]) or [""]
+            out = [(" " * gap).join(c.rjust(w) if r else c.ljust(w)
+                                    for c, w, r in zip((first,) + tuple(cells[1:]), widths, right)).rstrip()]
+            return "\n".join(out + ["  " + x for x in rest])
+        lines = [line(head)]
+        for b in body:
+            lines.append(line(b[:7]))
+            if b[7]:
+                lines.append(textwrap.fill(b[7], width, initial_indent="    ", subsequent_indent="    "))
+        wrap = dict(width=width, subsequent_indent="    ", break_on_hyphens=False)
+        if notes:
+            lines.append("")
+        lines.extend(textwrap.fill(f"[{i}] {n}", **wrap) for i, n in enumerate(notes, 1))
         lines.append(f"discarded {self.start_frame} frames ({self.discarded_time:.4g} s) as transient")
-        lines.extend("note: " + n for n in self.notes)
+        lines.extend(textwrap.fill("note: " + n, **wrap) for n in self.notes)
         lines.append("PASSED" if self.passed else "FAILED: " + ", ".join(
             r.quantity for r in self.rows if r.status == "fail"))
         return "\n".join(lines)
+
+
+#: SI unit of a row -> (unit shown in the text table, factor from SI).
+DISPLAY_UNITS = {
+    "m": ("nm", 1e9), "m^2": ("nm^2", 1e18), "m^2/s": ("um^2/s", 1e12), "N/m": ("pN/nm", 1e3),
+    "m^2/s^2": ("um^2/s^2", 1e12), "m/s": ("um/s", 1e6),
+}
+
+
+def _digits(value, error):
+    """Significant digits that show ``value`` to the second digit of ``error`` (6 without one)."""
+    if error is None or value is None or not (error > 0 and math.isfinite(error) and math.isfinite(value)) \
+            or value == 0:
+        return 6
+    return int(min(8, max(2, math.floor(math.log10(abs(value))) - math.floor(math.log10(error)) + 2)))
+
+
+def _num(v, scale=1.0, digits=6):
+    if v is None or (isinstance(v, float) and not math.isfinite(v)):
+        return ""
+    return f"{v * scale:.{digits}g}"
 
 
 def _get(cfg, *keys, default=KeyError):
@@ -240,11 +314,12 @@ def _z(measured, error, predicted):
     return (measured - predicted) / error
 
 
-def _row(quantity, measured, error, predicted, formula, source, unit="", z_threshold=4.5, info=False, note=""):
+def _row(quantity, measured, error, predicted, formula, source, unit="", z_threshold=4.5, info=False, note="",
+         key=""):
     z = _z(measured, error, predicted)
     status = "info" if info else ("pass" if z is not None and abs(z) <= z_threshold else "fail")
     return Row(quantity, float(measured), None if error is None else float(error), float(predicted),
-               None if z is None else float(z), status, formula, source, unit, note)
+               None if z is None else float(z), status, formula, source, unit, note, key)
 
 
 def _scheme_bias(setup, curvature, a):
@@ -352,7 +427,8 @@ def check(traj, z_threshold=4.5, min_events=20, transient_factor=10.0):
     free = [a for a in range(s.d) if kinds[a] == "free"]
     n = src.n_frames - start
     if free and n >= 400:
-        for lag in np.unique([1, int(round(math.sqrt(n))), n // 200]):
+        roles = {1: "short", int(round(math.sqrt(n))): "medium", n // 200: "long"}   # key of each lag
+        for lag in sorted(roles):
             try:
                 msd, err = msd_at_lags(traj.positions, [lag], start)
             except InsufficientDataError as e:
@@ -372,7 +448,7 @@ def check(traj, z_threshold=4.5, min_events=20, transient_factor=10.0):
                     of = float(theory.ornstein_furth_msd(t, s.kT, s.mass, s.friction[a]))
                     form, src_ = f"BAOAB free-particle MSD (Ornstein-Furth: {of:.6g})", SRC_OF
                 report.rows.append(_row(f"MSD {AXES[a]} at {t:.3g} s", msd[a], err[a], pred, form, src_,
-                                        "m^2", **kw))
+                                        "m^2", key=f"msd_{roles[lag]}.{AXES[a]}", **kw))
     # ------------------------------------------------------------ PSD
     for a in harm:
         (_baoab_psd_rows if under else _psd_rows)(report, traj, s, a, start, kw)
@@ -401,7 +477,7 @@ def _psd_rows(report, traj, s, a, start, kw):
     """Corner frequency, D and stiffness from an ML fit of the scheme's exact expected periodogram.
 
     The model (:func:`~langsim.analysis.spectra.scheme_psd`) is the exact
-    expectation of the blocked periodogram of the scheme's recorded positions,
+    expectation of the segment-averaged periodogram of the scheme's recorded positions,
     leakage included, parametrised by the physical (f_c, D); fitted to that
     expectation it returns them exactly, so the predictions are the physical
     kappa/(2 pi gamma) and kT/gamma. Segments are at least 32 relaxation times
@@ -443,10 +519,11 @@ def _psd_rows(report, traj, s, a, start, kw):
     report.rows.append(_row(f"corner frequency {AXES[a]}", fit.corner_frequency_, infl * fit.corner_frequency_err_,
                             fc, "f_c = kappa/(2 pi gamma); " + form, src, "Hz", **kw))
     report.rows.append(_row(f"diffusion coefficient {AXES[a]} (PSD)", fit.diffusion_, infl * fit.diffusion_err_,
-                            D, "D = kT/gamma; " + form, src, "m^2/s", **kw))
+                            D, "D = kT/gamma; " + form, src, "m^2/s",
+                            key=f"diffusion_coefficient_psd.{AXES[a]}", **kw))
     report.rows.append(_row(f"stiffness {AXES[a]} (PSD)", fit.stiffness_, infl * fit.stiffness_err_, k,
                             "kappa = 2 pi gamma f_c with the configured friction", "common practice", "N/m",
-                            info=True, note="same test as the corner frequency", **kw))
+                            info=True, note="same test as the corner frequency", key=f"stiffness_psd.{AXES[a]}", **kw))
     expected = theory.expected_periodogram(acov, s.frame_dt)[1:N // 2 + 1][:fit.frequencies_.size]
     report._plot_data[f"psd {AXES[a]}"] = {"f": fit.frequencies_, "P": fit.psd_, "fit": fit.predict(fit.frequencies_),
                                           "predicted": expected, "label": f"fitted {s.scheme} spectrum"}
@@ -456,7 +533,7 @@ def _baoab_psd_rows(report, traj, s, a, start, kw):
     """Resonance frequency, Q and stiffness from an ML fit of BAOAB's exact expected periodogram.
 
     The model (:func:`~langsim.analysis.spectra.baoab_psd`) is the exact
-    expectation of the blocked periodogram of BAOAB's recorded positions in a
+    expectation of the segment-averaged periodogram of BAOAB's recorded positions in a
     harmonic well, leakage included, in the physical f0 = sqrt(k/m)/(2 pi),
     Q = sqrt(k m)/gamma and variance kT/k; fitted to that expectation it
     returns them to ~1e-7, so the predictions are the configured values.
@@ -482,7 +559,7 @@ def _baoab_psd_rows(report, traj, s, a, start, kw):
     N = _segment(report, a, n, ring_f, 256)
     if N is None:
         return
-    f, P, count = blocked_periodogram(traj.positions, s.frame_dt, N, start, axis=a)
+    f, P, count = segment_averaged_periodogram(traj.positions, s.frame_dt, N, start, axis=a)
     keep = f <= 2.0 * f0
     f, P = f[keep], P[keep]
     # start the search from the data: the highest bin of the (5-bin smoothed) periodogram and its half width
@@ -502,7 +579,7 @@ def _baoab_psd_rows(report, traj, s, a, start, kw):
     report.rows.append(_row(f"quality factor {AXES[a]}", Q_m, Q_e, Q, "Q = sqrt(k m)/gamma; " + form, src, "", **kw))
     report.rows.append(_row(f"stiffness {AXES[a]} (PSD)", s.kT / var, s.kT / var * var_e / var, k,
                             "k = kT/variance (fitted peak area; exact for BAOAB positions); " + form, src,
-                            "N/m", **kw))
+                            "N/m", key=f"stiffness_psd.{AXES[a]}", **kw))
     report._plot_data[f"psd {AXES[a]}"] = {"f": f, "P": P, "fit": baoab_psd(f, f0_m, Q_m, var, s.dt, s.every, N),
                                           "predicted": baoab_psd(f, f0, Q, s.kT / k, s.dt, s.every, N),
                                           "label": "fitted BAOAB spectrum"}
@@ -559,6 +636,7 @@ def _well_rows(report, traj, s, start, min_events, kw):
     if s.regime == "overdamped":
         for name, rate, err, x0, x1, cnt in (("A->B", er.rate_ab_, er.rate_ab_err_, xa, xb, er.dwell_a_.size),
                                              ("B->A", er.rate_ba_, er.rate_ba_err_, xb, xa, er.dwell_b_.size)):
+            key = "escape_rate." + name.replace("->", "").lower()
             pred = 1.0 / theory.mfpt(U, x0, x1, s.kT, s.friction[a], rtol=1e-8)
             if cnt < min_events:
                 report.notes.append(f"escape {name}: {cnt} transitions < {min_events}; rate check skipped")
@@ -566,11 +644,12 @@ def _well_rows(report, traj, s, start, min_events, kw):
             gated = bias > 0.25 / math.sqrt(cnt)
             report.rows.append(_row(f"escape rate {name}", rate, err, pred,
                                     "1/MFPT minimum to minimum (exact double integral); core-set counting",
-                                    SRC_HTB, "1/s", info=gated, note=f"{cnt} transitions", **kw))
+                                    SRC_HTB, "1/s", info=gated, note=f"{cnt} transitions", key=key, **kw))
         kod = theory.kramers_rate_overdamped(k_min, k_top, s.friction[a], barrier, s.kT)
         report.rows.append(_row("escape rate (Kramers, overdamped)", er.rate_, er.rate_err_, kod,
                                 "asymptotic; expected error about +0.5 kT/dU relative "
-                                f"({0.5 * s.kT / barrier:.1%})", SRC_HTB, "1/s", info=True, **kw))
+                                f"({0.5 * s.kT / barrier:.1%})", SRC_HTB, "1/s", info=True,
+                                key="escape_rate_kramers", **kw))
     else:
         m = s.mass
         Ib = theory.barrier_action(U, xa, xt, m)
@@ -579,7 +658,7 @@ def _well_rows(report, traj, s, start, min_events, kw):
         report.rows.append(_row("escape rate (Mel'nikov-Meshkov)", er.rate_, er.rate_err_, kt,
                                 "asymptotic turnover rate" + (" A^2(D)/A(2D) k_SD" if sym else " A(D) k_SD")
                                 + "; expect errors of order 10 % at 5 kT", SRC_MM, "1/s", info=True,
-                                note=f"{er.n_events_} transitions", **kw))
+                                note=f"{er.n_events_} transitions", key="escape_rate_turnover", **kw))
 
 
 def write_plots(traj, report, directory):
@@ -630,7 +709,7 @@ def write_plots(traj, report, directory):
     for key, d in data.items():
         if key.startswith("psd"):
             fig, ax = plt.subplots()
-            ax.loglog(d["f"], d["P"], ".", ms=2, label="blocked periodogram")
+            ax.loglog(d["f"], d["P"], ".", ms=2, label="segment-averaged periodogram")
             ax.loglog(d["f"], d["fit"], "-", label=d.get("label", "fitted model"))
             ax.loglog(d["f"], d["predicted"], "--", label="predicted (exact expectation)")
             ax.set_xlabel("f (Hz)")

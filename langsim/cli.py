@@ -67,6 +67,15 @@ def _warning_line(message, category, filename, lineno, file=None, line=None):
           + ("" if "\n" not in str(message) else " ..."), file=sys.stderr)
 
 
+def _out(text):
+    """Print ``text`` on stdout; a reader that went away (``| head``) ends it quietly."""
+    try:
+        print(text, flush=True)
+    except BrokenPipeError:
+        # stdout is gone: point it at /dev/null so that the interpreter's last flush stays quiet
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+
+
 def _error(lines):
     if isinstance(lines, str):
         lines = [lines]
@@ -298,7 +307,7 @@ def cmd_info(args):
             lines.append(f"status       {why}")
             lines.append(f"resume       langsim run CONFIG -o {traj.path} --resume   "
                          "(CONFIG: the config this run was started from)")
-        print("\n".join(lines))
+        _out("\n".join(lines))
     return EXIT_OK
 
 
@@ -329,7 +338,7 @@ def cmd_check(args):
             report = _check.check(traj)
         except ValueError as exc:   # too little data for an estimate, and the like
             return _error(f"{traj.path}: cannot be checked: {exc}")
-        print(report.to_json() if args.json else report.format_table())
+        _out(report.to_json() if args.json else report.format_table())
         if args.plots is not None:
             try:
                 paths = _check.write_plots(traj, report, args.plots)

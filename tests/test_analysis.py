@@ -398,11 +398,11 @@ def test_baoab_psd_is_the_exact_expected_periodogram():
 
 
 def test_baoab_fit_recovers_f0_q_and_stiffness():
-    from langsim.analysis.spectra import baoab_model, blocked_periodogram, fit_psd_model
+    from langsim.analysis.spectra import baoab_model, segment_averaged_periodogram, fit_psd_model
     k, m, g, kT, h, every = CANT.values()
     f0, Q = math.sqrt(k / m) / (2 * math.pi), math.sqrt(k * m) / g
     x = baoab_series(21, k, m, g, kT, h, every, 2**14, 32)
-    f, P, n = blocked_periodogram(x, h * every, 2**13)
+    f, P, n = segment_averaged_periodogram(x, h * every, 2**13)
     keep = f <= 2 * f0  # band used by checks._baoab_psd_rows
     r = fit_psd_model(f[keep], P[keep], n, baoab_model(h, every, 2**13), start=(0.9 * f0, 5.0), tol=1e-8)
     (var, f0m, Qm), (ve, fe, Qe) = r["params"], r["errors"]

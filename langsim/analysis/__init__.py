@@ -15,7 +15,7 @@ from .equipartition import Equipartition, axis_moments
 from .escape import EscapeRate, dwell_times, rate_from_events
 from .msd import (MSD, RelaxationStiffness, lag_autocorrelation, mean_msd, msd_at_lags,
                   msd_direct, msd_fft, velocity_autocorrelation)
-from .spectra import LorentzianFit, OscillatorFit, blocked_periodogram, fit_psd_model
+from .spectra import LorentzianFit, OscillatorFit, segment_averaged_periodogram, fit_psd_model
 from .stats import (FrameSource, InsufficientDataError, NotFittedError, blocking,
                     integrated_autocorr_time)
 
@@ -23,5 +23,5 @@ __all__ = ["BoltzmannTest", "boltzmann_test", "equal_probability_edges", "Equipa
            "axis_moments", "EscapeRate", "dwell_times", "rate_from_events", "MSD",
            "RelaxationStiffness", "lag_autocorrelation", "mean_msd", "msd_at_lags", "msd_direct",
            "msd_fft", "velocity_autocorrelation", "LorentzianFit", "OscillatorFit",
-           "blocked_periodogram", "fit_psd_model", "FrameSource", "InsufficientDataError",
+           "segment_averaged_periodogram", "fit_psd_model", "FrameSource", "InsufficientDataError",
            "NotFittedError", "blocking", "integrated_autocorr_time"]

@@ -1,4 +1,4 @@
-"""Blocked periodograms and maximum-likelihood fits of trap and oscillator spectra.
+"""Segment-averaged periodograms and maximum-likelihood fits of trap and oscillator spectra.
 
 Normalisation (two-sided, per Hz) as in [1]: for a segment of N samples dt
 apart, x^_k = dt sum_j x_j exp(2 pi i k j/N) and P_k = |x^_k|^2/(N dt), whose
@@ -32,11 +32,11 @@ from scipy import optimize
 from .. import theory
 from .stats import Estimator, FrameSource, single_axis
 
-__all__ = ["blocked_periodogram", "fit_psd_model", "scheme_psd", "scheme_model", "baoab_psd", "baoab_model",
+__all__ = ["segment_averaged_periodogram", "fit_psd_model", "scheme_psd", "scheme_model", "baoab_psd", "baoab_model",
            "LorentzianFit", "OscillatorFit", "MODELS", "SCHEMES"]
 
 
-def blocked_periodogram(positions, dt, segment_length, start=0, axis=None):
+def segment_averaged_periodogram(positions, dt, segment_length, start=0, axis=None):
     """Periodogram averaged over non-overlapping segments and particles.
 
     Parameters
@@ -338,7 +338,7 @@ class _SpectrumFit(Estimator):
         _positive_opt("dt", self.dt, allow_none=False)
         src = FrameSource(positions, axis=self.axis)
         N = self.segment_length or _default_segment(src.n_frames - int(self.start))
-        f, P, count = blocked_periodogram(positions, self.dt, N, self.start, self.axis)
+        f, P, count = segment_averaged_periodogram(positions, self.dt, N, self.start, self.axis)
         lo = self.f_min if self.f_min is not None else 0.0
         hi = self.f_max if self.f_max is not None else np.inf
         keep = (f >= lo) & (f <= hi)
