@@ -165,18 +165,16 @@ def _describe(path):
 
 def cmd_run(args):
     from . import engine
-    from .validation import ConfigError
+    from .trajectory import check_output_path
     out = _output_path(args)
-    if out is not None and os.path.exists(args.config) and os.path.exists(out) \
-            and os.path.samefile(out, args.config):
-        raise ConfigError(f"output {out!r}: is the config file itself; expected another "
-                          "file name (-o OUT.h5)")
     shown = out
     if out is None:
         from . import config as _config
         mapping, _ = _config.read(args.config)
         shown = os.path.join(os.path.dirname(args.config), mapping["output"]["path"]) \
             if isinstance(mapping["output"].get("path"), str) else None
+    if shown is not None:      # refused before anything is read from it (the sink checks again)
+        shown = check_output_path(shown, args.overwrite, args.resume, protect=(args.config,))
     resume_hint = (f"langsim run {args.config}" + (f" -o {args.output}" if args.output else "")
                    + " --resume")
     if args.resume and shown is not None:

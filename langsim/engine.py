@@ -339,7 +339,9 @@ def run(config, out=None, *, progress=True, threads=None, overwrite=False, resum
         sink = MemorySink()
     else:
         from . import trajectory
-        sink = trajectory.HDF5Sink(path, overwrite=overwrite, resume=resume)
+        config_file = config if isinstance(config, (str, bytes, os.PathLike)) else None
+        sink = trajectory.HDF5Sink(path, overwrite=overwrite, resume=resume,
+                                   protect=(config_file,))
         spec = _resume_seed(config, spec, sink)
     engine = Engine(spec, sink, progress=progress, threads=threads)
     try:

@@ -391,6 +391,15 @@ def parse_energy(source, parameters, dimensions):
     return expr, [names[c] for c in coords], names["t"]
 
 
+def _parameter_name(key):
+    """A name the expression parser sees as itself (Python normalises identifiers NFKC)."""
+    import keyword
+    import unicodedata
+    return (isinstance(key, str) and key.isidentifier() and not keyword.iskeyword(key)
+            and unicodedata.normalize("NFKC", key) == key
+            and key not in _COORDS + ("t",) + tuple(_CONSTANTS) + _FUNCTIONS)
+
+
 @dataclass(frozen=True)
 class Expression(Term):
     """A user energy U(x, y, z, t) in J, given as a string with named parameters."""
@@ -409,10 +418,11 @@ class Expression(Term):
             params = {}
         clean = {}
         for key, value in params.items():
-            where = f"{t.path}.parameters.{key}"
-            if not key.isidentifier() or key in _COORDS + ("t",) + tuple(_CONSTANTS) + _FUNCTIONS:
-                t.errors.add(where, key, "a parameter name that is an identifier and not "
-                                         "x, y, z, t, pi, e or a function name")
+            where = (f"{t.path}.parameters.{key}" if isinstance(key, str) and key.isidentifier()
+                     else f"{t.path}.parameters[{key!r}]")
+            if not _parameter_name(key):
+                t.errors.add(where, key, "a parameter name that is a (non-keyword) identifier "
+                                         "and not x, y, z, t, pi, e or a function name")
                 continue
             try:
                 clean[key] = number()(value)
@@ -516,12 +526,13 @@ def user_terms(terms, d):
         coords = None
         for i, term in enumerate(exprs):
             expr, coords, _ = term.sympy_energy(d, substitute=False)
-            # parameters of term i are read as P[...] under names of their own
+            # parameters of term i are read as P[...] under names of their own, renamed all
+            # at once (xreplace): a parameter called like a generated name (_p0) is not captured
             renames = {}
             for name in sorted(term.parameters):
                 renames[sympy.Symbol(name, real=True)] = sympy.Symbol(f"_p{len(values)}", real=True)
                 values.append(term.parameters[name])
-            total = total + expr.subs(renames)
+            total = total + expr.xreplace(renames)
         lines += [f"    _p{k} = P[{k}]" for k in range(len(values))]
         for i, c in enumerate(coords):
             lines.append(f"    force[{i}] = {pycode(-sympy.diff(total, c), fully_qualified_modules=True)}")

@@ -182,19 +182,22 @@ def _config_error(message):
     return ConfigError(message)
 
 
-def check_output_path(path, overwrite=False, resume=False):
+def check_output_path(path, overwrite=False, resume=False, protect=()):
     """Refuse an output path that would lose data or cannot be written.
 
-    Raises :class:`~langsim.validation.ConfigError` naming the path and what
-    was expected; nothing is created or changed.
+    Every way a path reaches a sink (``out=``, ``[output] path``, ``-o``, the
+    config's name with .h5) passes here. ``protect`` lists files that must
+    never be the output (the config file), whatever the flags.
+
+    Returns the path as a str. Raises :class:`~langsim.validation.ConfigError`
+    naming the path and what was expected; nothing is created or changed.
     """
     import os
-    path = os.fspath(path)
+    from .safeio import exists_error, path_text
+    path = path_text(path)
     if overwrite and resume:
         raise _config_error(f"output {path!r}: overwrite and resume both requested; expected one "
                             "of them (overwrite replaces the file, resume continues it)")
-    if not path.strip():
-        raise _config_error("output path = '': expected a file name such as run.h5")
     folder = os.path.dirname(os.path.abspath(path))
     if not os.path.isdir(folder):
         raise _config_error(f"output {path!r}: folder {folder!r} does not exist; expected an "
@@ -205,12 +208,14 @@ def check_output_path(path, overwrite=False, resume=False):
     if os.path.isdir(path):
         raise _config_error(f"output {path!r}: is a folder; expected a file name such as run.h5")
     if os.path.exists(path):
+        for other in protect:
+            if other is not None and os.path.exists(other) and os.path.samefile(path, other):
+                raise _config_error(f"output {path!r}: is the config file itself; expected "
+                                    "another file name (-o OUT.h5 or [output] path)")
         if not os.access(path, os.W_OK):
             raise _config_error(f"output {path!r}: file exists and is read-only")
         if not (overwrite or resume):
-            raise _config_error(f"output {path!r}: file exists; expected a new file name, or "
-                                "overwrite (--overwrite) to replace it, or resume (--resume) to "
-                                "continue the run it holds")
+            raise exists_error(path)
     return path
 
 
@@ -361,13 +366,15 @@ class HDF5Sink:
     file, so a crash leaves every frame up to the last checkpoint readable.
     """
 
-    def __init__(self, path, overwrite=False, resume=False):
-        self.path = check_output_path(path, overwrite, resume)
+    def __init__(self, path, overwrite=False, resume=False, protect=()):
+        self.path = check_output_path(path, overwrite, resume, protect)
         self.overwrite = overwrite
         self.resume = resume
         self.resumed = False
         self.already_complete = False
         self.file = None
+        self._created = None       # (st_dev, st_ino) of the file this sink created
+        self._lock_fd = None       # our own lock when HDF5 does not lock
 
     # ---------------------------------------------------------------- start
     def start(self, spec):
@@ -394,13 +401,42 @@ class HDF5Sink:
                 raise _config_error(f"output {self.path!r}: the file is open in this process "
                                     "(a Trajectory from load or run); expected it closed first "
                                     "(traj.close())") from None
-            if "lock" in text.lower():
-                raise _config_error(f"output {self.path!r}: the file is open for writing in "
-                                    "another process; expected that run to end first") from None
+            if "unable to lock" in text.lower():
+                from .safeio import in_use_error
+                raise in_use_error(self.path) from None
             raise _config_error(f"output {self.path!r}: cannot be opened as HDF5 ({text}); "
                                 "expected a langsim trajectory file") from None
 
-    def _create(self, spec):
+    def _create(self, spec, replace=None):
+        """A new file: laid out at a temporary name, then put in place by
+        :func:`langsim.safeio.install` (never truncating a file, never one in use)."""
+        import os
+        from . import safeio
+        temp = safeio.temp_path(self.path)
+        try:
+            self._layout(spec, temp)
+            self._lock_fd = safeio.hold_lock(temp)
+            safeio.install(temp, self.path, self.overwrite if replace is None else replace)
+            st = os.stat(self.path)
+            self._created = (st.st_dev, st.st_ino)
+        except BaseException:
+            self._close_quietly()
+            safeio.remove(temp)
+            raise
+
+    def _close_quietly(self):
+        import os
+        f, self.file = self.file, None
+        if f is not None:
+            try:
+                f.close()
+            except Exception:   # the disk may be full: the checkpointed state is already on disk
+                pass
+        fd, self._lock_fd = self._lock_fd, None
+        if fd is not None:
+            os.close(fd)
+
+    def _layout(self, spec, path):
         import datetime
         import h5py
         from . import __version__
@@ -408,7 +444,7 @@ class HDF5Sink:
         dtype = np.float32 if out.precision == "single" else np.float64
         chunks = _chunks(p.count, p.dimensions, np.dtype(dtype).itemsize, spec.n_frames)
         try:
-            f = h5py.File(self.path, "w", fs_strategy="none", rdcc_w0=1.0,
+            f = h5py.File(path, "x", fs_strategy="none", rdcc_w0=1.0,
                           rdcc_nbytes=_cache_bytes(chunks, dtype))
         except OSError as exc:
             raise _config_error(f"output {self.path!r}: cannot be created ({exc})") from None
@@ -503,7 +539,7 @@ class HDF5Sink:
             if slot < 0:                    # stopped before frame 0: nothing to keep
                 f.close()
                 self.file = None
-                self._create(spec)
+                self._create(spec, replace=True)
                 return None
             step, n_frames = int(cp.attrs["step"]), int(cp.attrs["n_frames"])
             stored = int(cp.attrs.get("stored_frames", n_frames))
@@ -661,18 +697,17 @@ class HDF5Sink:
             f.attrs["complete"] = bool(status.complete)
             f.attrs["state"] = state
             f.flush()
-            f.close()
-            self.file = None
+            self._close_quietly()
         return load(self.path)
 
     def abort(self):
-        """Close after an error without marking the file; frames to the last checkpoint stay valid."""
-        f, self.file = self.file, None
-        if f is not None:
-            try:
-                f.close()
-            except Exception:   # the disk may be full: the checkpointed state is already on disk
-                pass
+        """Close after an error without marking the file; frames to the last checkpoint stay
+        valid. A file this sink created for a run that never reached its first checkpoint is
+        removed: a run that could not start leaves nothing behind."""
+        from . import safeio
+        if self._created is not None and getattr(self, "slot", -1) < 0 and self.file is not None:
+            safeio.remove_if_same(self.path, self._created)   # still locked: still ours
+        self._close_quietly()
 
 
 def _metadata_on_flush_only(f):
