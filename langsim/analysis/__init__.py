@@ -9,8 +9,11 @@ results end in ``_``):
 - :class:`LorentzianFit`, :class:`OscillatorFit` -- spectral fits
 - :class:`BoltzmannTest` -- histogram vs exp(-U/kT)
 - :class:`EscapeRate` -- core-set transition counting
+- :class:`CovarianceDiffusion`, :class:`OptimalMSDFit` -- D and localization error from
+  measured tracks; :class:`BlurredTrap` -- trap stiffness through motion blur
 """
 from .boltzmann import BoltzmannTest, boltzmann_test, equal_probability_edges
+from .diffusion import BlurredTrap, CovarianceDiffusion, OptimalMSDFit, track_segments
 from .equipartition import Equipartition, axis_moments
 from .escape import EscapeRate, dwell_times, rate_from_events
 from .msd import (MSD, RelaxationStiffness, lag_autocorrelation, mean_msd, msd_at_lags,
@@ -19,7 +22,7 @@ from .spectra import LorentzianFit, OscillatorFit, segment_averaged_periodogram,
 from .stats import (FrameSource, InsufficientDataError, NotFittedError, blocking,
                     integrated_autocorr_time)
 
-__all__ = ["BoltzmannTest", "boltzmann_test", "equal_probability_edges", "Equipartition",
+__all__ = ["BlurredTrap", "CovarianceDiffusion", "OptimalMSDFit", "track_segments", "BoltzmannTest", "boltzmann_test", "equal_probability_edges", "Equipartition",
            "axis_moments", "EscapeRate", "dwell_times", "rate_from_events", "MSD",
            "RelaxationStiffness", "lag_autocorrelation", "mean_msd", "msd_at_lags", "msd_direct",
            "msd_fft", "velocity_autocorrelation", "LorentzianFit", "OscillatorFit",

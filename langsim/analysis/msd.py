@@ -87,12 +87,23 @@ def mean_msd(positions, max_lag=None, start=0):
     return src.out(acc / src.n_particles)
 
 
-def msd_at_lags(positions, lags, start=0, min_blocks=16):
-    """Particle-averaged MSD per axis at given lags with blocking errors.
+def msd_at_lags(positions, lags, start=0, min_blocks=16, min_replicas=16):
+    """Particle-averaged MSD per axis at given lags with standard errors.
 
-    For each lag m the series s_j = mean over particles of (x_{j+m} - x_j)^2
-    is formed and its mean and standard error found by blocking. Returns
-    ``(msd, err)`` of shape (len(lags), dims) (or (len(lags),)).
+    For each lag m every particle's time-averaged squared displacement q_p
+    (over its frames) is formed; the MSD is their mean. With at least
+    ``min_replicas`` particles, the particles are independent replicas and the
+    error is std(q_p)/sqrt(n_particles) (this works for typical tracking data,
+    e.g. 200 tracks of 1000 frames, where blocking within a track is too short).
+    With fewer particles the particle-averaged series s_j = mean_p (x_{j+m} -
+    x_j)^2 is blocked instead (:func:`~langsim.analysis.stats.blocking`).
+    Returns ``(msd, err)`` of shape (len(lags), dims) (or (len(lags),)).
+
+    Raises
+    ------
+    InsufficientDataError
+        When blocking is needed and the series is too short; the message and
+        ``required_length`` give the frames (from ``start``) that would be enough.
     """
     src = FrameSource(positions)
     start = src.check_start(start)
@@ -105,10 +116,22 @@ def msd_at_lags(positions, lags, start=0, min_blocks=16):
     cols = [src.column(p, start) for p in range(src.n_particles)]
     msd = np.empty((lags.size, src.n_dims))
     err = np.empty_like(msd)
+    replicas = len(cols) >= min_replicas
     for i, m in enumerate(lags):
+        if replicas:
+            q = np.array([np.mean((c[m:] - c[:-m]) ** 2, axis=0) for c in cols])
+            msd[i], err[i] = q.mean(axis=0), q.std(axis=0, ddof=1) / math.sqrt(len(cols))
+            continue
         s = sum((c[m:] - c[:-m]) ** 2 for c in cols) / len(cols)
         for a in range(src.n_dims):
-            r = blocking(s[:, a], min_blocks=min_blocks)
+            try:
+                r = blocking(s[:, a], min_blocks=min_blocks)
+            except InsufficientDataError as e:
+                need = (e.required_length or 0) + m
+                raise InsufficientDataError(
+                    f"MSD at lag {m} frames: {e}; that is about {need} frames per particle from frame "
+                    f"{start} (or at least {min_replicas} particles, whose independence gives the error)",
+                    estimate=e.estimate, required_length=need, length=n) from None
             msd[i, a], err[i, a] = r.mean, r.error
     return src.out(msd), src.out(err)
 

@@ -292,12 +292,13 @@ def blocking(series, base_block=1, n_samples=None, naive_variance=None, min_bloc
             return r
     last = results[-1]
     g = last.inefficiency
-    # n blocks of B = n/min_blocks samples satisfy B^3 > 2 n g^2 once n > min_blocks^1.5 sqrt(2) g
-    # (g is a lower bound here, as it has not reached its plateau)
-    need = max(int(math.ceil(min_blocks**1.5 * math.sqrt(2.0) * g)) + 1, n + 1)
+    # n blocks of B = n/min_blocks samples satisfy B^3 > 2 n g^2 once n > min_blocks^1.5 sqrt(2) g.
+    # g is only a lower bound here (it has not reached its plateau), so at least one more
+    # blocking level, i.e. twice the samples, is needed whatever that bound says.
+    need = max(int(math.ceil(min_blocks**1.5 * math.sqrt(2.0) * g)), 2 * n)
     raise InsufficientDataError(
-        f"blocking found no plateau: {n} samples with inefficiency >= {g:.3g}; about {need} "
-        f"samples would be enough (partial error {last.error:.3g})",
+        f"blocking found no plateau: {n} samples with inefficiency >= {g:.3g}; at least {need} "
+        f"samples are needed (partial error {last.error:.3g})",
         estimate=last, required_length=need, length=n)
 
 
