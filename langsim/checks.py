@@ -81,15 +81,24 @@ def row_key(quantity):
 
 @dataclass
 class CheckReport:
-    """Rows of a check plus what was discarded; ``passed`` is True when no row failed."""
+    """Rows of a check plus what was discarded.
+
+    ``passed`` is True when at least one row was checked (pass or fail) and
+    none failed: a run that nothing could be checked against does not pass.
+    """
     rows: list = field(default_factory=list)
     start_frame: int = 0
     discarded_time: float = 0.0
     notes: list = field(default_factory=list)
 
     @property
+    def checked(self):
+        """Number of rows compared with an exact prediction (status pass or fail)."""
+        return sum(r.status in ("pass", "fail") for r in self.rows)
+
+    @property
     def passed(self):
-        return not any(r.status == "fail" for r in self.rows)
+        return self.checked > 0 and not any(r.status == "fail" for r in self.rows)
 
     def to_dict(self):
         def clean(v):
@@ -98,7 +107,7 @@ class CheckReport:
             if isinstance(v, float) and not math.isfinite(v):
                 return None
             return v
-        return {"passed": self.passed, "start_frame": self.start_frame,
+        return {"passed": self.passed, "checked": self.checked, "start_frame": self.start_frame,
                 "discarded_time": self.discarded_time, "notes": list(self.notes),
                 "rows": [{k: clean(v) for k, v in asdict(r).items()} for r in self.rows]}
 
@@ -148,8 +157,12 @@ class CheckReport:
         lines.extend(textwrap.fill(f"[{i}] {n}", **wrap) for i, n in enumerate(notes, 1))
         lines.append(f"discarded {self.start_frame} frames ({self.discarded_time:.4g} s) as transient")
         lines.extend(textwrap.fill("note: " + n, **wrap) for n in self.notes)
-        lines.append("PASSED" if self.passed else "FAILED: " + ", ".join(
-            r.quantity for r in self.rows if r.status == "fail"))
+        if not self.checked:
+            lines.append(textwrap.fill("NOTHING CHECKED: no exact prediction applies to this run (see the "
+                                       "notes); this is not a pass", **wrap))
+        else:
+            lines.append("PASSED" if self.passed else "FAILED: " + ", ".join(
+                r.quantity for r in self.rows if r.status == "fail"))
         return "\n".join(lines)
 
 

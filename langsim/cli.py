@@ -58,7 +58,8 @@ CHECK_HELP = """\
 Compare a trajectory with the exact predictions for its own configuration
 (equipartition, diffusion, spectra, Boltzmann histogram, escape rates, as they
 apply) and print a table of measured +- error, predicted, z and pass/fail.
-Exit code 0 when every check passes, 1 when one fails.
+Exit code 0 when every check passes, 1 when one fails or when nothing could be
+checked (no exact prediction applies to the run: the report says so).
 """
 
 

@@ -69,6 +69,26 @@ class Term:
         """The same term frozen at its t = 0 configuration."""
         return self
 
+    def energy_at(self, positions, time=0.0):
+        """Energy U (J) at ``positions`` (..., dimensions) m and ``time`` s, in numpy.
+
+        The same function the kernels compute (tests/test_potentials.py checks
+        them against each other), for quadratures in :mod:`langsim.theory`.
+        """
+        raise NotImplementedError(f"{type(self).__name__} has no energy")
+
+    def isotropic(self, dimensions):
+        """True when U depends only on the distance from ``center`` (in 1D: U is
+        symmetric about it) and not on time, so that :func:`radial_profile` applies."""
+        return False
+
+
+def _positions(positions, d):
+    x = np.asarray(positions, dtype=float)
+    if x.shape[-1:] != (d,):
+        raise ValueError(f"positions must have shape (..., {d}), got {x.shape}")
+    return x
+
 
 def _axes(table, key, d, element, default, units):
     return tuple(table.get(key, per_axis(element, d), default=[default] * d, units=units))
@@ -148,6 +168,14 @@ class Harmonic(Term):
         d = len(self.center)
         return Harmonic(self.stiffness, tuple(self.center_at(0.0)), (0.0,) * d, (0.0,) * d, 0.0, 0.0)
 
+    def energy_at(self, positions, time=0.0):
+        x = _positions(positions, len(self.center))
+        s = x - self.center_at(time)
+        return 0.5 * np.sum(np.array(self.stiffness) * s * s, axis=-1)
+
+    def isotropic(self, dimensions):
+        return not self.moving and len(set(self.stiffness[:dimensions])) == 1
+
 
 @dataclass(frozen=True)
 class DoubleWell(Term):
@@ -187,6 +215,17 @@ class DoubleWell(Term):
         out = np.array(self.stiffness[:d], dtype=float)
         out[self.axis] = self.well_curvature
         return out
+
+    def energy_at(self, positions, time=0.0):
+        x = _positions(positions, len(self.center))
+        s = x - np.array(self.center)
+        q = (2.0 * s[..., self.axis] / self.separation) ** 2 - 1.0
+        k = np.array(self.stiffness, dtype=float)
+        k[self.axis] = 0.0
+        return self.barrier * q * q + 0.5 * np.sum(k * s * s, axis=-1)
+
+    def isotropic(self, dimensions):
+        return dimensions == 1
 
     def sampling_range(self, axis, kT):
         c = self.center[axis]
@@ -234,6 +273,14 @@ class Periodic(Term):
         out[self.axis] = 0.5 * self.barrier * (2 * math.pi / self.period) ** 2
         return out
 
+    def energy_at(self, positions, time=0.0):
+        x = _positions(positions, len(self.center))
+        s = x[..., self.axis] - self.center[self.axis]
+        return 0.5 * self.barrier * (1.0 - np.cos(2.0 * math.pi * s / self.period)) - self.tilt * s
+
+    def isotropic(self, dimensions):
+        return dimensions == 1 and self.tilt == 0.0
+
     def period_range(self):
         c = self.center[self.axis]
         return c - 0.5 * self.period, c + 0.5 * self.period
@@ -271,6 +318,14 @@ class GaussianWell(Term):
     def curvature(self, d):
         return np.array([4.0 * self.depth / w**2 for w in self.waist[:d]])
 
+    def energy_at(self, positions, time=0.0):
+        x = _positions(positions, len(self.center))
+        s = (x - np.array(self.center)) / np.array(self.waist)
+        return -self.depth * np.exp(-2.0 * np.sum(s * s, axis=-1))
+
+    def isotropic(self, dimensions):
+        return len(set(self.waist[:dimensions])) == 1
+
     def sampling_range(self, axis, kT):
         half = GAUSSIAN_BASIN_WAISTS * self.waist[axis]
         return self.center[axis] - half, self.center[axis] + half
@@ -293,6 +348,13 @@ class ConstantForce(Term):
         row = _row()
         _put(row, 0, self.force)
         return row
+
+    def energy_at(self, positions, time=0.0):
+        x = _positions(positions, len(self.force))
+        return -np.sum(np.array(self.force) * x, axis=-1)
+
+    def isotropic(self, dimensions):
+        return not any(self.force[:dimensions])
 
 
 # ----------------------------------------------------------------- expressions
@@ -447,6 +509,13 @@ class Expression(Term):
         values = {sympy.Symbol(k, real=True): v for k, v in self.parameters.items()}
         return expr.subs(values), coords, t
 
+    def energy_at(self, positions, time=0.0):
+        x = np.asarray(positions, dtype=float)
+        d = x.shape[-1]
+        fn = _lambdified(self, d)
+        out = fn(*[x[..., a] for a in range(d)], float(time))
+        return np.broadcast_to(np.asarray(out, dtype=float), x.shape[:-1]).copy()
+
 
 @dataclass(frozen=True)
 class Function(Term):
@@ -468,10 +537,83 @@ class Function(Term):
             return cls(function=None)
         return cls(function=fn)
 
+    def energy_at(self, positions, time=0.0):
+        x = np.asarray(positions, dtype=float)
+        flat = x.reshape(-1, x.shape[-1])
+        force = np.empty(flat.shape[1])
+        out = np.array([float(self.function(np.ascontiguousarray(p), float(time), force)) for p in flat])
+        return out.reshape(x.shape[:-1])
+
     def resolved(self):
         fn = self.function
         return {"type": self.name,
                 "function": f"{getattr(fn, '__module__', '?')}.{getattr(fn, '__qualname__', repr(fn))}"}
+
+
+_LAMBDIFIED = {}
+
+
+def _lambdified(term, d):
+    """numpy function (x, y, z, t) -> U of an expression term, cached per (energy, parameters, d).
+
+    The expression went through :func:`parse_energy`'s whitelist, so the
+    generated numpy code holds only numbers, coordinates and whitelisted functions."""
+    import sympy
+    key = (term.energy, tuple(sorted(term.parameters.items())), d)
+    if key not in _LAMBDIFIED:
+        if len(_LAMBDIFIED) > 64:
+            _LAMBDIFIED.clear()
+        expr, coords, t = term.sympy_energy(d)
+        _LAMBDIFIED[key] = sympy.lambdify(coords + [t], expr, modules="numpy")
+    return _LAMBDIFIED[key]
+
+
+def total_energy(terms, positions, time=0.0):
+    """Sum of the terms' energies (J) at ``positions`` (..., dimensions) m."""
+    x = np.asarray(positions, dtype=float)
+    out = np.zeros(x.shape[:-1])
+    for term in terms:
+        out = out + term.energy_at(x, time)
+    return out
+
+
+def axis_profile(terms, axis, dimensions, point=None, time=0.0):
+    """U along ``axis`` through ``point`` (default the origin): a vectorised callable of
+    the coordinate on that axis (m) -> J.
+
+    For separable terms the other coordinates add only a constant, so this is
+    the 1D potential of that axis for :func:`langsim.theory.mfpt`.
+    """
+    base = np.zeros(dimensions) if point is None else np.array(point, dtype=float)
+
+    def U(s):
+        s = np.asarray(s, dtype=float)
+        x = np.broadcast_to(base, s.shape + (dimensions,)).copy()
+        x[..., axis] = s
+        return total_energy(terms, x, time)
+    return U
+
+
+def radial_profile(terms, center, dimensions):
+    """U(r) along a ray from ``center`` when every term is isotropic about it, else ValueError.
+
+    A vectorised callable of the distance r (m) -> J, for
+    :func:`langsim.theory.mfpt_radial`.
+    """
+    c = np.array(center, dtype=float)
+    for term in terms:
+        tc = getattr(term, "center", None)
+        own = None if tc is None else np.array(tc[:dimensions], dtype=float)
+        if not term.isotropic(dimensions) or (own is not None and not np.allclose(own, c, rtol=0.0,
+                                                                                  atol=1e-15)):
+            raise ValueError(f"potential term {term.name!r} is not isotropic about {c.tolist()}")
+    direction = np.zeros(dimensions)
+    direction[0] = 1.0
+
+    def U(r):
+        r = np.asarray(r, dtype=float)
+        return total_energy(terms, c + r[..., None] * direction)
+    return U
 
 
 #: Registry: config ``type`` string -> term class.

@@ -10,9 +10,11 @@ Spectral densities are per Hz; "two-sided" densities integrate over
 Contents: equipartition; the overdamped harmonic trap (Ornstein-Uhlenbeck
 process) with its aliased and motion-blurred spectra; the underdamped free
 particle and damped oscillator; exact stationary statistics of the discrete
-schemes the engine implements, at finite time step, for harmonic forces; mean
-first-passage times of 1D overdamped diffusion by quadrature; Kramers-type
-escape rates; helpers for the quartic double well used by langsim.
+schemes the engine implements, at finite time step, for harmonic forces; exact
+mean first-passage times of overdamped diffusion by quadrature, in 1D and for
+isotropic wells in 2D and 3D, from a point or from the start basin's Boltzmann
+density; Kramers-type escape rates and the Gaussian well's asymptotes (for
+information, with their expected errors); helpers for the quartic double well.
 
 References
 ----------
@@ -65,7 +67,9 @@ __all__ = [
     "baoab_velocity_variance", "baoab_transition_matrix",
     "baoab_position_autocorrelation", "baoab_free_msd", "lm_free_msd",
     "scheme_position_variance", "scheme_position_autocovariance",
-    "mfpt", "transition_state_rate", "kramers_rate_overdamped",
+    "mfpt", "mfpt_equilibrium", "mfpt_radial", "mfpt_radial_equilibrium",
+    "gaussian_well_langer_time", "gaussian_well_separable_time", "gaussian_well_separable_error",
+    "transition_state_rate", "kramers_rate_overdamped",
     "kramers_rate_spatial_diffusion", "kramers_rate_energy_diffusion",
     "barrier_action", "melnikov_meshkov_factor", "kramers_rate_turnover",
     "quartic_double_well", "double_well_curvatures", "double_well_action",
@@ -501,40 +505,295 @@ def _check_potential(potential):
         raise TypeError(f"potential must be a callable U(x) returning J, got {potential!r}")
 
 
-def mfpt(potential, x0, x_abs, kT, friction, x_reflect=-math.inf, rtol=1e-10):
-    """Exact mean first-passage time of 1D overdamped diffusion, by quadrature, s.
+#: Energy above the lowest point of a domain (in kT) beyond which the Boltzmann
+#: weight of an unbounded side is cut off: e^-60 ~ 1e-26 of the weight.
+TAIL_CUTOFF_KT = 60.0
+#: Grid points per segment of the first first-passage quadrature; doubled until converged.
+_GRID_START = 1 << 11
+_GRID_MAX = 1 << 22
 
-    T(x0 -> x_abs) = (1/D) int_{x0}^{x_abs} dy e^{U(y)/kT} int_{x_R}^{y} dz e^{-U(z)/kT}
-    (Pontryagin; [8]) with D = kT/gamma, reflecting at ``x_reflect`` (default
-    -inf) and absorbing at ``x_abs``. If x_abs < x0 the mirror problem is
-    solved (reflecting at ``x_reflect`` = +inf by default).
 
-    To compare with a rate k: MFPT to the barrier top ~ 1/(2k); to the other
-    minimum ~ 1/k (the quantity to compare with Kramers' rate).
+def _energies(potential, x):
+    """U on an array of points, for vectorised and scalar-only callables alike."""
+    x = np.asarray(x, dtype=float)
+    try:
+        u = np.asarray(potential(x), dtype=float)
+    except (TypeError, ValueError):
+        u = None
+    if u is None or u.shape != x.shape:
+        u = np.array([float(potential(v)) for v in x.ravel()]).reshape(x.shape)
+    return u
+
+
+def _tail_end(u, inner, step):
+    """A point beyond ``inner`` (in the direction of ``step``) where the reduced
+    energy ``u`` lies TAIL_CUTOFF_KT above its lowest value in between, or None
+    when the side does not confine (a finite-depth well, a free axis)."""
+    far = inner + step
+    for _ in range(64):
+        grid = np.linspace(inner, far, 257)
+        vals = u(grid)
+        if vals[-1] - np.min(vals) > TAIL_CUTOFF_KT and vals[-1] >= np.max(vals[-9:]):
+            above = np.flatnonzero(vals - np.minimum.accumulate(vals) > TAIL_CUTOFF_KT)
+            return float(grid[above[0]])
+        far = inner + 2.0 * (far - inner)
+    return None
+
+
+def _passage_integrals(u, lo, b, knot, jac, basin, rtol):
+    """Mean first-passage time in reduced units (D = 1), reflecting at ``lo``,
+    absorbing at ``b`` > ``knot`` >= ``lo``.
+
+    With the weight w(y) = y^jac e^{-u(y)} and I(y) = int_lo^y w:
+    from the point ``knot``: T = int_knot^b I/w dy (Pontryagin; [8]);
+    averaged over the Boltzmann density on [lo, knot] (``basin``):
+    T = (1/I(knot)) int_lo^knot I^2/w dy + int_knot^b I/w dy (the same,
+    integrated over the start point by parts [D]). Composite Simpson on two
+    uniform segments split at ``knot``, the grid doubled until two successive
+    results agree to ``rtol`` (Richardson estimate of Simpson's error).
     """
+    previous = None
+    n = _GRID_START
+    while True:
+        parts = []
+        for a, c in ((lo, knot), (knot, b)):
+            y = np.linspace(a, c, n + 1)
+            parts.append((y, u(y)))
+        umin = min(float(np.min(p[1])) for p in parts)
+        total_i = 0.0
+        pieces = []
+        for y, uy in parts:
+            shift = uy - umin
+            jw = np.ones_like(y) if jac == 0 else np.where(y > 0, y, 0.0) ** jac
+            w = jw * np.exp(-shift)
+            if y[-1] > y[0]:
+                cum = total_i + integrate.cumulative_simpson(w, x=y, initial=0.0)
+            else:
+                cum = np.full_like(y, total_i)
+            with np.errstate(divide="ignore", over="ignore", invalid="ignore"):  # I/w in logs
+                f = np.where(jw > 0, np.exp(np.log(cum) + shift - np.log(jw)), 0.0)
+            pieces.append((y, cum, f))
+            total_i = float(cum[-1])
+        (y1, i1, f1), (y2, i2, f2) = pieces
+        outer = integrate.simpson(f2, x=y2) if y2[-1] > y2[0] else 0.0
+        if basin:
+            if not i1[-1] > 0:
+                raise ValueError("the start basin holds no Boltzmann weight")
+            outer += integrate.simpson(i1 * f1, x=y1) / i1[-1] if y1[-1] > y1[0] else 0.0
+        if previous is not None and abs(outer - previous) <= 15.0 * rtol * abs(outer):
+            return outer
+        if 2 * n > _GRID_MAX:
+            raise ValueError(f"first-passage quadrature did not converge to rtol = {rtol:g} "
+                             f"(last two results {previous!r}, {outer!r})")
+        previous = outer
+        n *= 2
+
+
+def _mfpt_1d(potential, x0, x_abs, kT, friction, x_reflect, rtol, basin):
     _check_potential(potential)
     kT = _positive("kT", kT)
     D = kT / _positive("friction", friction)
     x0, x_abs = float(x0), float(x_abs)
-    if x0 == x_abs:
+    if not (math.isfinite(x0) and math.isfinite(x_abs)):
+        raise ValueError(f"start and absorbing point must be finite, got {x0!r}, {x_abs!r}")
+    if x0 == x_abs and not basin:
         return 0.0
-    if x_abs < x0:  # mirror: V(x) = U(-x)
-        xr = math.inf if x_reflect == -math.inf else x_reflect
-        return mfpt(lambda x: potential(-x), -x0, -x_abs, kT, friction, -xr, rtol)
-    if not x_reflect < x0:
-        raise ValueError(f"x_reflect must lie below x0 = {x0!r}, got {x_reflect!r}")
-    ell = x_abs - x0
-    if abs(ell - 1.0) > 1e-12:  # work in units of |x_abs - x0| so quadrature sees O(1) scales
-        return mfpt(lambda u: potential(x0 + ell * u), 0.0, 1.0, kT, friction * ell * ell,
-                                (x_reflect - x0) / ell, rtol)
-    # shift the energies by the lowest value on [x0, x_abs] (and nearby) to avoid overflow
-    grid = np.linspace(x0 - (x_abs - x0), x_abs, 2001)
-    u_ref = min(float(potential(g)) for g in grid[:: 20]) / kT
-    inner = lambda y: integrate.quad(lambda z: math.exp(u_ref - potential(z) / kT),
-                                     x_reflect, y, epsabs=0.0, epsrel=rtol, limit=400)[0]
-    outer = integrate.quad(lambda y: math.exp(potential(y) / kT - u_ref) * inner(y),
-                           x0, x_abs, epsabs=0.0, epsrel=rtol, limit=400)[0]
-    return outer / D
+    what = "basin_edge" if basin else "x0"
+    if x_abs < x0:
+        raise ValueError(f"{what} = {x0!r} must lie on the reflecting side of x_abs = {x_abs!r}")
+    ell = x_abs - x0 if x_abs > x0 else 1.0
+    if basin and x_reflect is not None and math.isfinite(x_reflect):
+        ell = x_abs - x_reflect
+
+    def u(s):  # reduced energy on the reduced coordinate s = (x - x0)/ell
+        return _energies(potential, x0 + ell * s) / kT
+
+    b = (x_abs - x0) / ell
+    if x_reflect is None or x_reflect == -math.inf:
+        lo = _tail_end(u, 0.0, -1.0)
+        if lo is None:
+            raise ValueError(
+                "the potential does not confine the particle on the reflecting side (a "
+                "finite-depth well or a free axis): with a reflecting point at infinity the "
+                "mean first-passage time is infinite. Give x_reflect (for a well symmetric "
+                "about its centre c, x_reflect = c gives the exit time from |x - c| < "
+                "|x_abs - c|), or use mfpt_radial for an isotropic well")
+    else:
+        lo = (float(x_reflect) - x0) / ell
+        if lo > 0:
+            raise ValueError(f"x_reflect = {x_reflect!r} must lie at or below {what} = {x0!r}")
+    return ell * ell * _passage_integrals(u, lo, b, 0.0, 0, basin, rtol) / D
+
+
+def _mirror(potential, x0, x_abs, x_reflect):
+    """Mirror image x -> -x of a problem whose absorbing point lies below the start."""
+    xr = None if x_reflect is None else -float(x_reflect)
+    return (lambda x: potential(-np.asarray(x, dtype=float))), -x0, -x_abs, xr
+
+
+def mfpt(potential, x0, x_abs, kT, friction, x_reflect=None, rtol=1e-9):
+    """Exact mean first-passage time of 1D overdamped diffusion, by quadrature, s.
+
+    T(x0 -> x_abs) = (1/D) int_{x0}^{x_abs} dy e^{U(y)/kT} int_{x_R}^{y} dz e^{-U(z)/kT}
+    (Pontryagin; [8]) with D = kT/gamma, reflecting at ``x_reflect`` and
+    absorbing at ``x_abs`` (either side of ``x0``).
+
+    Parameters
+    ----------
+    potential : callable U(x) -> J, x in m (vectorised or scalar)
+    x0, x_abs : float, m
+        Start and absorbing point. A start at the reflecting point is allowed.
+    kT : float, J
+    friction : float, kg/s
+    x_reflect : float or None, m
+        Reflecting point on the far side of ``x0`` from ``x_abs``. None (the
+        default): at infinity, where the potential confines the particle;
+        for a finite-depth well (or a free axis) that time is infinite and a
+        ValueError says so.
+    rtol : float
+        Relative accuracy of the quadrature.
+
+    To compare with a rate k: MFPT to the barrier top ~ 1/(2k); to the other
+    minimum ~ 1/k (the quantity to compare with Kramers' rate).
+    """
+    if float(x_abs) < float(x0):
+        potential, x0, x_abs, x_reflect = _mirror(potential, float(x0), float(x_abs), x_reflect)
+    return _mfpt_1d(potential, x0, x_abs, kT, friction, x_reflect, rtol, basin=False)
+
+
+def mfpt_equilibrium(potential, basin_edge, x_abs, kT, friction, x_reflect=None, rtol=1e-9):
+    """Mean first-passage time to ``x_abs`` from the Boltzmann density of the start basin, s.
+
+    The start is distributed as e^{-U/kT} between the reflecting point and
+    ``basin_edge``; the result is the average of :func:`mfpt` over it,
+    T = (1/D) [ (1/I_s) int_R^s I(y)^2 e^{U(y)/kT} dy + int_s^b I(y) e^{U(y)/kT} dy ],
+    I(y) = int_R^y e^{-U/kT}, s = basin_edge, b = x_abs ([8]; the average taken
+    by parts, derived). This is the inverse of the escape rate that
+    :func:`langsim.escape_rate` measures. Arguments as for :func:`mfpt`.
+    """
+    if float(x_abs) < float(basin_edge):
+        potential, basin_edge, x_abs, x_reflect = _mirror(potential, float(basin_edge), float(x_abs),
+                                                          x_reflect)
+    if float(basin_edge) >= float(x_abs):
+        raise ValueError(f"basin_edge = {basin_edge!r} must lie before x_abs = {x_abs!r}")
+    return _mfpt_1d(potential, basin_edge, x_abs, kT, friction, x_reflect, rtol, basin=True)
+
+
+def _mfpt_radial(potential, r0, r_abs, kT, friction, dimensions, rtol, basin):
+    _check_potential(potential)
+    d = int(dimensions)
+    if d not in (1, 2, 3) or d != dimensions:
+        raise ValueError(f"dimensions must be 1, 2 or 3, got {dimensions!r}")
+    kT = _positive("kT", kT)
+    D = kT / _positive("friction", friction)
+    R = _positive("r_abs", r_abs)
+    r0 = float(r0)
+    if not 0.0 <= r0 <= R or (basin and r0 <= 0.0):
+        what = "basin_edge" if basin else "r0"
+        raise ValueError(f"{what} must lie in {'(' if basin else '['}0, r_abs = {R!r}], got {r0!r}")
+
+    def u(s):
+        return _energies(potential, R * s) / kT
+    return R * R * _passage_integrals(u, 0.0, 1.0, r0 / R, d - 1, basin, rtol) / D
+
+
+def mfpt_radial(potential, r0, r_abs, kT, friction, dimensions, rtol=1e-9):
+    """Mean first-passage time from radius ``r0`` to the sphere ``r_abs`` in an isotropic well, s.
+
+    T(r0 -> R) = (1/D) int_{r0}^{R} dr e^{U(r)/kT} r^{1-d} int_0^r r'^{d-1} e^{-U(r')/kT} dr'
+    for overdamped diffusion in d = 1, 2, 3 dimensions (the r^{d-1} Jacobian
+    of the backward equation, regular at r = 0; reference notes section 12.3,
+    derived there from [8]). A start at the centre (r0 = 0) is allowed; d = 1
+    is the exit from |x - c| < R of a well symmetric about c.
+
+    Parameters
+    ----------
+    potential : callable U(r) -> J, r in m (the well's energy along a ray from its centre)
+    r0, r_abs : float, m
+    kT : float, J
+    friction : float, kg/s
+    dimensions : int
+    """
+    return _mfpt_radial(potential, r0, r_abs, kT, friction, dimensions, rtol, basin=False)
+
+
+def mfpt_radial_equilibrium(potential, basin_edge, r_abs, kT, friction, dimensions, rtol=1e-9):
+    """Mean first-passage time to ``r_abs`` from the Boltzmann density within ``basin_edge``, s.
+
+    The average of :func:`mfpt_radial` over r^{d-1} e^{-U/kT} on [0, basin_edge]
+    (as :func:`mfpt_equilibrium`, derived): the inverse of the escape rate
+    :func:`langsim.escape_rate` measures for an isotropic well. It exceeds the
+    time from the centre by O(intra-well relaxation), about w^2 gamma/(4 depth)
+    for a Gaussian well (reference notes section 12.3).
+    """
+    return _mfpt_radial(potential, basin_edge, r_abs, kT, friction, dimensions, rtol, basin=True)
+
+
+def _gaussian_well_args(depth, waist, r_abs, kT, dimensions):
+    bD = _positive("depth", depth) / _positive("kT", kT)
+    w = _positive("waist", waist)
+    rho = _positive("r_abs", r_abs) / w
+    d = int(dimensions)
+    if d not in (2, 3) or d != dimensions:
+        raise ValueError(f"dimensions must be 2 or 3 for the radial estimates, got {dimensions!r}")
+    return bD, w, rho, d
+
+
+def _harmonic_population(bD, d):
+    """Z_h = e^{bD} Gamma(d/2) / (2 (2 bD)^{d/2}): radial weight of the harmonic well, units w^d."""
+    from scipy import special
+    return math.exp(bD) * special.gamma(d / 2.0) / (2.0 * (2.0 * bD) ** (d / 2.0))
+
+
+def gaussian_well_langer_time(depth, waist, r_abs, kT, friction, dimensions):
+    """Radial Kramers-Langer estimate of the escape time from a Gaussian well, s (information only).
+
+    U(r) = -depth exp(-2 r^2/w^2) has no saddle; the radial free energy
+    F(rho) = U/kT - (d - 1) ln rho (rho = r/w) has an entropic maximum rho_dagger
+    (4 (depth/kT) rho^2 e^{-2 rho^2} = d - 1; needs depth/kT > (d - 1) e/2).
+    T_KL = (w^2 gamma/kT) Z_h e^{F(rho_dagger)} sqrt(2 pi/|F''|) Phi((R/w - rho_dagger) sqrt|F''|),
+    Z_h the harmonic well population, Phi the normal CDF (reference notes
+    section 12.3, derived; Langer's parabolic-barrier method, [8]).
+
+    Expected error: the parabolic-barrier approximation is never good here
+    (the entropic barrier stands < 0.5 kT above its shoulder); exact/T_KL
+    ranges from 0.56 to 2.0 over 5-20 kT and is still 1.22 at 80 kT. Compare
+    with :func:`mfpt_radial` instead.
+    """
+    from scipy import special
+    bD, w, rho, d = _gaussian_well_args(depth, waist, r_abs, kT, dimensions)
+    if bD <= (d - 1) * math.e / 2.0:
+        raise ValueError(f"depth/kT = {bD:g} <= (d - 1) e/2 = {(d - 1) * math.e / 2:g}: "
+                         "the radial free energy has no barrier")
+    r2 = optimize.brentq(lambda q: 4.0 * bD * q * math.exp(-2.0 * q) - (d - 1), 0.5, 50.0, xtol=1e-15)
+    rd = math.sqrt(r2)
+    kap = abs((d - 1) * (2.0 - 4.0 * r2) / r2)
+    eF = math.exp(-bD * math.exp(-2.0 * r2)) * rd ** (1 - d)
+    t = _harmonic_population(bD, d) * eF * math.sqrt(2.0 * math.pi / kap) * special.ndtr((rho - rd) * math.sqrt(kap))
+    return t * w * w * _positive("friction", friction) / kT
+
+
+def gaussian_well_separable_time(depth, waist, r_abs, kT, friction, dimensions):
+    """Large-depth asymptote of the escape time from a Gaussian well, s (information only).
+
+    Well population times outer diffusive resistance:
+    T_sep = (w^2 gamma/kT) Z_h int_{1/2}^{R/w} e^{U(rho)/kT} rho^{1-d} d rho,
+    Z_h = e^{depth/kT} Gamma(d/2)/(2 (2 depth/kT)^{d/2}) (reference notes
+    section 12.3, derived). Expected error: the exact time is longer by a
+    relative d(d + 2) kT/(8 depth) (anharmonicity of the well): 9 % in 3D
+    and 5 % in 2D at 20 kT.
+    """
+    bD, w, rho, d = _gaussian_well_args(depth, waist, r_abs, kT, dimensions)
+    if rho <= 0.5:
+        raise ValueError(f"r_abs/waist = {rho:g} must exceed 1/2 for the separable estimate")
+    outer = integrate.quad(lambda q: math.exp(-bD * math.exp(-2.0 * q * q)) * q ** (1 - d), 0.5, rho,
+                           epsabs=0.0, epsrel=1e-10, limit=200)[0]
+    return _harmonic_population(bD, d) * outer * w * w * _positive("friction", friction) / kT
+
+
+def gaussian_well_separable_error(depth, kT, dimensions):
+    """Expected relative error d(d + 2) kT/(8 depth) of :func:`gaussian_well_separable_time`."""
+    return dimensions * (dimensions + 2) * _positive("kT", kT) / (8.0 * _positive("depth", depth))
 
 
 def transition_state_rate(omega_a, barrier, kT):

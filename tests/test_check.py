@@ -210,3 +210,22 @@ def test_engine_underdamped_psd_rows():
     assert rows["stiffness x (PSD)"].status == "pass"
     bad = check(Traj(1.3 * np.asarray(traj.positions), traj.config))
     assert {"stiffness x (PSD)", "variance x"} <= failed(bad)
+
+
+def test_nothing_checked_is_not_a_pass(tmp_path):
+    # a periodic potential has no exact prediction here: the report must say so and not pass
+    import langsim
+    from langsim import cli
+    cfg = {"seed": 5, "particles": {"count": 4, "dimensions": 1, "friction": GAMMA},
+           "medium": {"temperature": 295.15},
+           "potential": [{"type": "periodic", "barrier_kT": 2.0, "period": 1e-6}],
+           "dynamics": {"dt": 1e-4, "steps": 2000}, "output": {"every": 10, "path": str(tmp_path / "p.h5")}}
+    traj = langsim.run(cfg, progress=False)
+    rep = check(traj)
+    traj.close()
+    assert rep.checked == 0 and not rep.passed
+    assert "NOTHING CHECKED" in rep.format_table() and "PASSED" not in rep.format_table()
+    assert json.loads(rep.to_json())["passed"] is False
+    assert cli.main(["check", str(tmp_path / "p.h5")]) == 1
+    harmonic = Traj(*harmonic_trajectory(3, frames=4000))
+    assert check(harmonic).checked > 0 and check(harmonic).passed

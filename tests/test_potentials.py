@@ -50,6 +50,47 @@ def test_builtin_force_is_minus_energy_gradient(term):
         np.testing.assert_allclose(F[:, a], numeric, atol=1e-5 * scale)
 
 
+@pytest.mark.parametrize("term", TERMS, ids=lambda t: t.name)
+def test_python_energy_is_the_kernel_energy(term):
+    """The numpy energy of each term (for theory's quadratures) is the compiled one."""
+    rng = np.random.Generator(np.random.PCG64(5))
+    X = rng.normal(scale=0.6e-6, size=(40, 3))
+    codes, params = P.builtin_rows([term], 3)
+    F, E = np.empty_like(X), np.empty(len(X))
+    builtin_forces(codes, params, X, 0.37, F, E, True)
+    np.testing.assert_allclose(term.energy_at(X, 0.37), E, rtol=1e-12, atol=1e-12 * np.max(np.abs(E)))
+    shifted = P.Harmonic((1e-6,) * 3, (1e-7, 0.0, 0.0), (0.0,) * 3, (0.0,) * 3)
+    assert not np.allclose(shifted.energy_at(X), P.Harmonic((1e-6,) * 3, (0.0,) * 3, (0.0,) * 3,
+                                                         (0.0,) * 3).energy_at(X), rtol=1e-3, atol=0.0)
+
+
+def test_user_term_energies_and_profiles():
+    """Expression and function energies; axis and radial profiles of the terms."""
+    from numba import njit
+
+    @njit
+    def quartic(x, t, force):
+        force[0] = -4.0 * 2e12 * x[0] ** 3
+        return 2e12 * x[0] ** 4
+    x = np.linspace(-1e-6, 1e-6, 7)[:, None]
+    expr = P.Expression("a*x**4", {"a": 2e12})
+    np.testing.assert_allclose(expr.energy_at(x), 2e12 * x[:, 0] ** 4, rtol=1e-14)
+    np.testing.assert_allclose(P.Function(quartic).energy_at(x), 2e12 * x[:, 0] ** 4, rtol=1e-14)
+    well = P.GaussianWell(10 * kT, (1e-6,) * 3, (1e-7, 0.0, 0.0))
+    trap = P.Harmonic((1e-6,) * 3, (1e-7, 0.0, 0.0), (0.0,) * 3, (0.0,) * 3)
+    r = np.linspace(0.0, 2e-6, 5)
+    U = P.radial_profile([well, trap], (1e-7, 0.0, 0.0), 3)
+    np.testing.assert_allclose(U(r), -10 * kT * np.exp(-2 * r**2 / 1e-12) + 0.5e-6 * r**2, rtol=1e-12)
+    with pytest.raises(ValueError, match="not isotropic"):
+        P.radial_profile([well], (0.0, 0.0, 0.0), 3)        # not about its centre
+    with pytest.raises(ValueError, match="not isotropic"):
+        P.radial_profile([TERMS[3]], TERMS[3].center, 3)    # unequal waists
+    dw = TERMS[1]
+    Ux = P.axis_profile([dw], 1, 3)
+    np.testing.assert_allclose(Ux(np.array([1e-7 - 0.5e-6, 1e-7])) - Ux(np.array([1e-7 - 0.5e-6])),
+                               [0.0, 5 * kT], rtol=1e-12, atol=1e-12 * kT)
+
+
 def test_double_well_geometry():
     """Minima at +-separation/2 with U = 0, top U = barrier, U'' = 32 barrier/L^2."""
     L, B = 1e-6, 5 * kT

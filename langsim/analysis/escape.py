@@ -22,7 +22,7 @@ from scipy import stats
 
 from .stats import Estimator, single_axis
 
-__all__ = ["dwell_times", "rate_from_events", "EscapeRate"]
+__all__ = ["dwell_times", "rate_from_events", "CoreSetCounter", "EscapeRate"]
 
 
 def dwell_times(x, lower, upper):
@@ -72,6 +72,66 @@ def rate_from_events(n_events, exposure, confidence=0.95):
     return {"rate": rate, "rate_err": rate / math.sqrt(n), "ci": ci, "n": n}
 
 
+class CoreSetCounter:
+    """Core-set transitions of many particles, fed frame chunks in order (one pass).
+
+    Streaming form of :func:`dwell_times` for every particle at once: the
+    result equals :func:`dwell_times` applied to each particle's whole series,
+    while memory stays O(particles + chunk) and each frame is read once.
+    """
+
+    def __init__(self, n_particles, lower, upper):
+        if not lower < upper:
+            raise ValueError(f"lower must be < upper, got lower={lower!r}, upper={upper!r}")
+        self.lower, self.upper = lower, upper
+        self.core = np.zeros(n_particles, dtype=np.int8)       # last core visited (0: none yet)
+        self.entry = np.full(n_particles, -1, dtype=np.int64)  # frame of the last entry after a change
+        self.frames = 0
+        self.dwells = {-1: [], 1: []}
+        self.exposure = {-1: 0, 1: 0}
+
+    def feed(self, block):
+        """Next frames, shape (n, particles): the coordinate of each particle."""
+        block = np.asarray(block, dtype=float)
+        n = block.shape[0]
+        state = np.where(block <= self.lower, -1, np.where(block >= self.upper, 1, 0)).astype(np.int8)
+        # last core visited at each frame: forward fill of the nonzero states, seeded by the carry
+        idx = np.where(state != 0, np.arange(n)[:, None], -1)
+        np.maximum.accumulate(idx, axis=0, out=idx)
+        filled = np.where(idx >= 0, np.take_along_axis(state, np.maximum(idx, 0), axis=0), self.core[None, :])
+        before = np.concatenate([self.core[None, :], filled[:-1]])
+        change = (filled != before) & (before != 0)
+        # particle-major order of the change events: (particle, frame)
+        part, frame = np.nonzero(change.T)
+        if part.size:
+            frames = frame + self.frames
+            first = np.ones(part.size, bool)
+            first[1:] = part[1:] != part[:-1]
+            prev_entry = np.where(first, self.entry[part], np.concatenate([[0], frames[:-1]]))
+            prev_core = before[frame, part]
+            done = prev_entry >= 0
+            span = frames - prev_entry
+            for c in (-1, 1):
+                sel = done & (prev_core == c)
+                self.dwells[c].append(span[sel])
+                self.exposure[c] += int(span[sel].sum())
+            last = np.ones(part.size, bool)
+            last[:-1] = part[1:] != part[:-1]
+            self.entry[part[last]] = frames[last]
+        self.core = filled[-1].copy()
+        self.frames += n
+
+    def result(self):
+        """As :func:`dwell_times`, pooled over particles (dwells in frames)."""
+        exposure = dict(self.exposure)
+        open_ = self.entry >= 0
+        for c in (-1, 1):
+            sel = open_ & (self.core == c)
+            exposure[c] += int((self.frames - self.entry[sel]).sum())
+        cat = {c: (np.concatenate(v) if v else np.zeros(0, int)) for c, v in self.dwells.items()}
+        return {"dwell_a": cat[-1], "dwell_b": cat[1], "exposure_a": exposure[-1], "exposure_b": exposure[1]}
+
+
 class EscapeRate(Estimator):
     """Escape rates between two cores from positions along one axis.
 
@@ -104,15 +164,13 @@ class EscapeRate(Estimator):
         if not (isinstance(self.dt, (int, float)) and self.dt > 0):
             raise ValueError(f"dt must be a positive number (s), got {self.dt!r}")
         src, start = single_axis(positions, self.axis, self.start)
-        da, db, ea, eb = [], [], 0, 0
-        for p in range(src.n_particles):
-            r = dwell_times(src.column(p, start)[:, 0], self.lower, self.upper)
-            da.append(r["dwell_a"])
-            db.append(r["dwell_b"])
-            ea += r["exposure_a"]
-            eb += r["exposure_b"]
-        self.dwell_a_ = np.concatenate(da) * self.dt
-        self.dwell_b_ = np.concatenate(db) * self.dt
+        counter = CoreSetCounter(src.n_particles, self.lower, self.upper)
+        for _, block in src.chunks(start):       # one pass over the frames
+            counter.feed(block[:, :, 0])
+        r = counter.result()
+        ea, eb = r["exposure_a"], r["exposure_b"]
+        self.dwell_a_ = r["dwell_a"] * self.dt
+        self.dwell_b_ = r["dwell_b"] * self.dt
         allw = np.concatenate([self.dwell_a_, self.dwell_b_])
         self.n_events_ = allw.size
         if allw.size < 2:
