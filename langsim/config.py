@@ -16,6 +16,8 @@ import numpy as np
 
 from . import potentials as _pot
 from . import seeding, units
+from .measurement import placement as _placement
+from .measurement import spec as _measurement_spec
 from .validation import (ConfigError, Errors, Invalid, Table, boolean, choice, integer, number,
                          per_axis, text)
 
@@ -97,6 +99,7 @@ class RunSpec:
     dynamics: Dynamics
     output: Output
     resolved: dict
+    measurement: object = None     # langsim.measurement.spec.Measurement, or None
 
     @property
     def kT(self):
@@ -166,6 +169,8 @@ def load(source):
                            medium, regime, errors)
     terms = _terms(top.raw("potential"), particles.dimensions, kT, errors)
     dynamics = _dynamics(dyn_table, regime)
+    measurement = _measurement_spec.parse(top.raw("measurement"), errors, particles.dimensions,
+                                          dynamics.dt, dynamics.steps)
     output = _output(Table(errors, "[output]", top.raw("output"), "[output] {key}"), regime,
                      dynamics)
     top.finish()
@@ -180,6 +185,7 @@ def load(source):
             "radius": particles.radius, "density": particles.density, "mass": particles.mass,
             "friction": list(particles.friction),
             "initial": particles.initial if isinstance(particles.initial, str)
+            else particles.initial.resolved() if hasattr(particles.initial, "resolved")
             else np.asarray(particles.initial).tolist(),
             "burn_in": particles.burn_in},
         "medium": {"temperature": medium.temperature, "viscosity": medium.viscosity},
@@ -191,7 +197,9 @@ def load(source):
                    "precision": output.precision, "compression": output.compression,
                    "checkpoint_every": output.checkpoint_every},
     }
-    spec = RunSpec(seed, particles, medium, tuple(terms), dynamics, output, resolved)
+    if measurement is not None:
+        resolved["measurement"] = measurement.resolved
+    spec = RunSpec(seed, particles, medium, tuple(terms), dynamics, output, resolved, measurement)
     _guard_step(spec, path)
     return spec
 
@@ -250,6 +258,8 @@ def _particles(t, medium, regime, errors):
         errors.note("[particles] mass is missing: the underdamped regime needs mass (kg) "
                     "or density (kg/m^3) with radius")
     initial = _initial(t, count, d)
+    if getattr(initial, "density", None) is not None:
+        count = _placement.count_from_density(initial, d)
     burn_in = t.get("burn_in", _NONNEG, units="s")
     t.finish()
     return Particles(count, d, radius, density, mass, tuple(friction), initial, burn_in)
@@ -257,6 +267,8 @@ def _particles(t, medium, regime, errors):
 
 def _initial(t, count, d):
     value = t.raw("initial", "equilibrium")
+    if isinstance(value, dict):       # emitters over a field of view (langsim.measurement.placement)
+        return _placement.parse(value, d, t.has("count"), t.where("initial"), t.errors) or "equilibrium"
     if isinstance(value, str):
         if value != "equilibrium":
             t.bad("initial", "'equilibrium', a point of dimensions values, or an array "

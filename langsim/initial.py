@@ -73,6 +73,8 @@ def initial_positions(spec, rng):
     """Positions (count, dimensions) in m at t = 0, before any burn-in."""
     p = spec.particles
     n, d = p.count, p.dimensions
+    if hasattr(p.initial, "draw"):          # a box or disc (langsim.measurement.placement)
+        return p.initial.draw(n, d, rng)
     if not isinstance(p.initial, str):
         return np.array(np.broadcast_to(p.initial, (n, d)), dtype=np.float64)
     x = np.zeros((n, d))
