@@ -1,0 +1,145 @@
+"""The measurement stage on runs of the engine: blur moments, blurred traps, blinking, drift.
+
+Until the engine's in-kernel recorder lands, exposure averages are computed here from
+every-step positions (langsim.measurement.stage.reference_frames): the reference the
+recorder must match. Sources: check-values section 8 (displacement moments with the blur
+coefficient R, Berglund 2010 and Vestergaard et al. 2014; R of the recorder's taps derived
+in langsim.measurement.formulas), section 13 (Wong & Halvorsen 2006), the two-state Markov
+chain's stationary law and exponential survival (common practice).
+"""
+import math
+
+import numpy as np
+import pytest
+
+import langsim
+from langsim import config
+from langsim.analysis import BlurredTrap, CovarianceDiffusion, OptimalMSDFit
+from langsim.measurement import formulas as F
+from langsim.measurement.stage import MeasurementStage, measure
+
+Z = 4.5
+KT = 1.380649e-23 * 295.15
+
+
+def free_run(exposure_steps, sigma, n=200, frames=400, period=10, seed=17):
+    cfg = {"seed": seed, "particles": {"count": n, "dimensions": 2, "friction": 1e-8},
+           "dynamics": {"dt": 1e-3, "steps": frames * period},
+           "measurement": {"frame_rate": 1.0 / (period * 1e-3), "exposure": exposure_steps * 1e-3,
+                           "localization_error": sigma}}
+    spec = config.load(cfg)
+    traj = langsim.run(cfg, progress=False)
+    return spec, measure(np.asarray(traj.positions), spec.measurement, spec.seed)
+
+
+@pytest.mark.parametrize("exposure_steps", [10, 4])
+def test_displacement_moments_of_blurred_noisy_free_diffusion(exposure_steps):
+    sigma, D = 30e-9, KT / 1e-8
+    spec, out = free_run(exposure_steps, sigma)
+    m = spec.measurement
+    R = m.blur                                   # exact R of the trapezoid taps (module notes)
+    dt = m.frame_interval
+    dx = np.diff(out["positions"], axis=0)       # (frames-1, particles, 2)
+    per_var = np.mean(dx * dx, axis=(0, 2))
+    per_cov = np.mean(dx[1:] * dx[:-1], axis=(0, 2))
+    s, c = F.displacement_moments(D, dt, sigma**2, R)
+    n = per_var.size
+    assert abs(per_var.mean() - s) <= Z * per_var.std(ddof=1) / math.sqrt(n)
+    assert abs(per_cov.mean() - c) <= Z * per_cov.std(ddof=1) / math.sqrt(n)
+    # without blur (R = 0) the lag-1 covariance would be -sigma^2: detected
+    assert abs(per_cov.mean() - F.displacement_moments(D, dt, sigma**2, 0.0)[1]) > \
+        Z * per_cov.std(ddof=1) / math.sqrt(n)
+    # the estimators recover D and sigma^2
+    for est in (CovarianceDiffusion(dt, blur=R), OptimalMSDFit(dt, blur=R)):
+        est.fit(out["positions"])
+        assert abs(est.diffusion_ - D) <= Z * est.diffusion_err_
+        assert abs(est.localization_variance_ - sigma**2) <= Z * est.localization_variance_err_
+    np.testing.assert_allclose(out["time"], np.arange(out["time"].size) * dt)
+
+
+def test_blurred_trap_variance_against_wong_halvorsen():
+    # overdamped trap, flat exposure = frame interval = tau_c (alpha = 1: S = 0.7358, check-values s13)
+    k, g, dt = 1e-6, 1e-8, 1e-4
+    tau = g / k                                  # 10 ms = 100 steps
+    cfg = {"seed": 5, "particles": {"count": 300, "dimensions": 1, "friction": g},
+           "potential": [{"type": "harmonic", "stiffness": k}],
+           "dynamics": {"dt": dt, "steps": 100 * 150},
+           "measurement": {"frame_rate": 1.0 / tau, "exposure": tau}}
+    spec = config.load(cfg)
+    traj = langsim.run(cfg, progress=False)
+    out = measure(np.asarray(traj.positions), spec.measurement, spec.seed)
+    x = out["true_positions"][:, :, 0]
+    v = np.mean(x * x, axis=0)
+    se = v.std(ddof=1) / math.sqrt(v.size)
+    # exact for the recorder's taps on the Euler-Maruyama chain (derived), and its dt -> 0 limit, W&H
+    a = 1 - k * dt / g
+    w, o = spec.measurement.exposure_taps()
+    exact = F.tap_average_autocovariance([0], w, o, 100, KT / k / (1 - k * dt / (2 * g)), a)[0]
+    wh = KT / k * F.wong_halvorsen_factor(1.0)
+    assert abs(exact - wh) < 0.5 * se            # discretisation well below the resolution
+    assert abs(v.mean() - wh) <= Z * se
+    assert abs(v.mean() - KT / k) > Z * se       # the unblurred variance kT/k fails
+    est = BlurredTrap(KT, tau, tau, center=0.0).fit(x)
+    assert abs(est.stiffness_ - k) <= Z * est.stiffness_err_
+
+
+def test_blinking_bleaching_drift_and_localization_error():
+    n, frames = 2000, 60
+    m = config.load({"seed": 2, "particles": {"count": n, "dimensions": 2, "friction": 1e-8},
+                     "dynamics": {"dt": 1e-3, "steps": frames * 10},
+                     "measurement": {"frame_rate": 100.0, "exposure": 0.005, "localization_error": [10e-9, 40e-9],
+                                     "on_rate": 20.0, "off_rate": 60.0, "photons": 500.0,
+                                     "drift_velocity": [1e-6, 0.0], "drift_jitter": 5e-9}}).measurement
+    true = np.zeros((frames, n, 2))
+    out = MeasurementStage(m, n, 2, 2).process(0, true)
+    # stationary on-probability on/(on + off) = 1/4 (two-state Markov chain)
+    frac = out["photons"] / 500.0
+    p = frac.mean()
+    se = frac.mean(axis=0).std(ddof=1) / math.sqrt(n)
+    assert abs(p - 0.25) <= Z * se and abs(p - 0.3) > Z * se
+    assert np.all(np.isnan(out["positions"][~out["on"]]))
+    # localization error: reported - true - drift is N(0, sigma^2) per axis
+    err = (out["positions"] - out["drift"][:, None, :])[out["on"]]
+    for a, s in enumerate((10e-9, 40e-9)):
+        var = np.mean(err[:, a] ** 2)
+        assert abs(var / s**2 - 1) <= Z * math.sqrt(2 / err.shape[0])
+    # drift: velocity times the exposure middle plus a random walk of 5 nm per frame (y: walk only)
+    t_mid = np.arange(frames) * 0.01 + 0.0025
+    walk = out["drift"] - np.outer(t_mid, [1e-6, 0.0])
+    assert np.all(np.abs(np.diff(walk, axis=0)) < 6 * 5e-9)
+    assert walk[0].tolist() == [0.0, 0.0]
+    # bleaching only: survival exp(-rate t) of the emitters (frames every 10 ms, rate 5/s)
+    mb = config.load({"seed": 2, "particles": {"count": n, "dimensions": 2, "friction": 1e-8},
+                      "dynamics": {"dt": 1e-3, "steps": frames * 10},
+                      "measurement": {"frame_rate": 100.0, "exposure": 0.01, "bleach_rate": 5.0,
+                                      "photons": 100.0}}).measurement
+    ob = MeasurementStage(mb, n, 2, 9).process(0, true)
+    alive = ob["on"][-1].mean()                  # on during the last exposure: not bleached at its start
+    pred = math.exp(-5.0 * 0.01 * (frames - 1))
+    assert abs(alive - pred) <= Z * math.sqrt(pred * (1 - pred) / n)
+
+
+def test_stage_state_round_trip_is_bit_identical():
+    # a checkpoint keeps the stage's state; resuming from it gives the same bits, images included
+    n, frames = 30, 12
+    m = config.load({"seed": 4, "particles": {"count": n, "dimensions": 2, "friction": 1e-8},
+                     "dynamics": {"dt": 1e-3, "steps": frames * 10},
+                     "measurement": {"frame_rate": 100.0, "exposure": 0.008, "localization_error": 10e-9,
+                                     "on_rate": 10.0, "off_rate": 10.0, "bleach_rate": 1.0,
+                                     "intensity_spread": 0.3, "drift_jitter": 2e-9, "photons": 800.0,
+                                     "pixel_size": 100e-9, "image_shape": [32, 32], "psf_sigma": 130e-9,
+                                     "background": 5.0, "read_noise": 1.0, "em_gain": 10.0}}).measurement
+    rng = np.random.default_rng(0)
+    avg = rng.uniform(-1.5e-6, 1.5e-6, (frames, n, 2))
+    path = avg[:, None] + 1e-8 * rng.standard_normal((frames, m.path_samples, n, 2))
+    whole = MeasurementStage(m, n, 2, 4).process(0, avg, path)
+    first = MeasurementStage(m, n, 2, 4)
+    a = first.process(0, avg[:5], path[:5])
+    second = MeasurementStage(m, n, 2, 4)
+    second.restore(first.state())
+    b = second.process(5, avg[5:], path[5:])
+    for name in whole:
+        np.testing.assert_array_equal(whole[name], np.concatenate([a[name], b[name]]), err_msg=name)
+    assert whole["images"].dtype == np.uint16 and whole["images"].shape == (frames, 32, 32)
+    with pytest.raises(ValueError, match="in order"):
+        second.process(3, avg[:1], path[:1])
