@@ -120,6 +120,8 @@ def build_parser():
     p.add_argument("--overwrite", action="store_true",
                    help="with --plots: replace figures already in DIR")
     p.set_defaults(func=cmd_check)
+    from .measurement.commands import add_commands   # score, export (runs with a [measurement] table)
+    add_commands(sub)
     return parser
 
 
