@@ -1,4 +1,4 @@
-"""Physical constants, Stokes drag and the viscosity of liquid water.
+"""Physical constants, Stokes drag, the viscosity of liquid water, wall corrections.
 
 Every physical constant used by the package comes from this module, which takes
 them from :mod:`scipy.constants` (CODATA; k_B is exact in the SI since 2019).
@@ -10,9 +10,15 @@ References
        H2O", J. Phys. Chem. Ref. Data 38, 101 (2009) (IAPWS 2008).
 .. [3] G. S. Kell, "Density, thermal expansivity, and compressibility of liquid
        water from 0 to 150 C", J. Chem. Eng. Data 20, 97 (1975).
+.. [4] H. Brenner, "The slow motion of a sphere through a viscous fluid towards
+       a plane surface", Chem. Eng. Sci. 16, 242 (1961).
+.. [5] H. Faxen (1923), as given in J. Happel, H. Brenner, Low Reynolds Number
+       Hydrodynamics (1965); E. Schaffer, S. F. Norrelykke, J. Howard, Langmuir
+       23, 3654 (2007): see :mod:`langsim.kernels.walls`.
 """
 import math
 
+import numpy as np
 import scipy.constants as _sc
 
 #: Boltzmann constant, J/K (exact, SI 2019).
@@ -94,3 +100,99 @@ def stokes_friction(viscosity, radius):
 def sphere_mass(radius, density):
     """Mass of a homogeneous sphere, kg."""
     return 4.0 / 3.0 * math.pi * radius**3 * density
+
+
+# ----------------------------------------------------------- wall corrections
+# A sphere of radius a, centre at distance h from a plane no-slip wall. The
+# factors are frictions relative to the bulk value gamma0 (>= 1); their
+# inverses are the mobility factors the kernels use (langsim.kernels.walls,
+# whose formulas these functions call, so there is one definition of each).
+
+
+def _eps(h, radius):
+    h = np.asarray(h, dtype=float)
+    if not radius > 0:
+        raise ValueError(f"radius = {radius!r}: expected a number > 0 (m)")
+    if np.any(~(h > radius)):
+        raise ValueError(f"h = {h!r}: expected centre-to-wall distances > radius = {radius!r} (m)")
+    return radius / h
+
+
+def _walls():
+    from .kernels import walls   # numba: imported on first use only
+    return walls
+
+
+def faxen_parallel_factor(h, radius):
+    """gamma_par/gamma0 of a sphere at centre-to-wall distance ``h`` (Faxen's series [5]).
+
+    Parameters
+    ----------
+    h : float or array, m (> radius); radius : float, m
+
+    Returns
+    -------
+    float or array, >= 1. Meant for h >~ 1.5 radius (common practice).
+    """
+    return 1.0 / _walls().faxen_parallel.py_func(_eps(h, radius))
+
+
+def closed_form_perpendicular_factor(h, radius):
+    """gamma_perp/gamma0 from the closed form of Schaffer et al. [5] (what the kernels use).
+
+    Within 0.34 % of :func:`brenner_perpendicular_factor` for all gaps.
+    """
+    return 1.0 / _walls().closed_form_perpendicular.py_func(_eps(h, radius))
+
+
+def perpendicular_mobility_slope(h, radius):
+    """d(gamma0/gamma_perp)/dh of the closed form, 1/m: the kernels' drift is kT/gamma0 times this."""
+    eps = _eps(h, radius)
+    return -_walls().closed_form_perpendicular_slope.py_func(eps) * eps / np.asarray(h, dtype=float)
+
+
+def brenner_perpendicular_factor(h, radius, rtol=1e-16):
+    """gamma_perp/gamma0 from Brenner's exact series [4] (reference notes, sections 3 and 18).
+
+    lambda = (4/3) sinh(alpha) sum_n n(n+1)/((2n-1)(2n+3))
+    [(2 sinh((2n+1)alpha) + (2n+1) sinh(2 alpha)) / (4 sinh^2((n+1/2)alpha)
+    - (2n+1)^2 sinh^2(alpha)) - 1], alpha = arccosh(h/radius), summed in the
+    overflow-free form (numerator and denominator times exp(-(2n+1) alpha))
+    until a term is below ``rtol`` of the sum.
+
+    Parameters
+    ----------
+    h : float or array, m (> radius); radius : float, m
+
+    Returns
+    -------
+    float or array, >= 1.
+    """
+    ratio = 1.0 / _eps(h, radius)
+    alpha = np.arccosh(ratio)
+    sh, sh2 = np.sinh(alpha), np.sinh(2.0 * alpha)
+    total = np.zeros_like(alpha)
+    n = 1
+    while True:
+        m = 2 * n + 1
+        e = np.exp(-m * alpha)
+        num = (1.0 - e * e) + m * sh2 * e
+        den = (1.0 - e) ** 2 - m * m * sh * sh * e
+        term = n * (n + 1) / ((2 * n - 1) * (2 * n + 3)) * (num / den - 1.0)
+        total = total + term
+        if n > 5 and np.all(np.abs(term) <= rtol * np.abs(total)):
+            break
+        n += 1
+    out = 4.0 / 3.0 * sh * total
+    return float(out) if out.ndim == 0 else out
+
+
+def wall_frictions(bulk_friction, h, radius):
+    """(gamma_par, gamma_perp), kg/s, at a fixed height: Faxen parallel, Brenner perpendicular."""
+    return (bulk_friction * faxen_parallel_factor(h, radius),
+            bulk_friction * brenner_perpendicular_factor(h, radius))
+
+
+def buoyant_mass(radius, density, fluid_density):
+    """(4/3) pi a^3 (rho_p - rho_f), kg: gravity minus buoyancy is this times g."""
+    return 4.0 / 3.0 * math.pi * radius**3 * (density - fluid_density)
