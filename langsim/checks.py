@@ -398,6 +398,11 @@ def check(traj, z_threshold=4.5, min_events=20, transient_factor=10.0):
             report.notes.append(f"axis {AXES[a]}: constant force without trap, MSD check skipped")
         elif k in ("periodic", "gaussian-well", "expression"):
             report.notes.append(f"axis {AXES[a]}: {k} potential, no exact prediction; skipped")
+    wall_h = _get(traj.config, "medium", "wall_distance", default=None)
+    if wall_h is not None:
+        report.notes.append(f"friction corrected for a wall at {wall_h * 1e6:.4g} um from the bead's centre "
+                            f"(normal axis {_get(traj.config, 'medium', 'wall_axis')}): parallel Faxen, "
+                            "perpendicular Brenner 1961; predictions use it")
     under = s.regime == "underdamped"
     if under and s.scheme != "baoab":
         report.notes.append(f"underdamped scheme {s.scheme!r} has no exact prediction here; checks skipped")

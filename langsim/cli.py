@@ -280,7 +280,10 @@ def cmd_info(args):
             + (f", mass {_fmt(par['mass'])} kg" if par.get("mass") is not None else ""),
             f"medium       temperature {med['temperature']:.6g} K"
             + (f", viscosity {med['viscosity']:.6g} Pa s"
-               if med.get("viscosity") is not None and par.get("radius") is not None else ""),
+               if med.get("viscosity") is not None and par.get("radius") is not None else "")
+            + (f", wall {med['wall_distance'] * 1e6:.4g} um from the bead's centre (normal axis "
+               f"{med['wall_axis']}; bulk friction {par['bulk_friction']:.6g} kg/s)"
+               if med.get("wall_distance") is not None else ""),
         ]
         terms = cfg.get("potential") or []
         if not terms:

@@ -15,7 +15,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from . import potentials as _pot
-from . import seeding, units
+from . import seeding, surface, units
 from .measurement import placement as _placement
 from .measurement import spec as _measurement_spec
 from .validation import (ConfigError, Errors, Invalid, Table, boolean, choice, integer, number,
@@ -53,12 +53,16 @@ class Particles:
     friction: tuple
     initial: object
     burn_in: float
+    #: surface.FixedHeight of [medium] wall_distance, or None
+    fixed_height: object = None
 
 
 @dataclass(frozen=True)
 class Medium:
     temperature: float
     viscosity: object
+    wall_distance: object = None    # m, bead centre to a plane wall (fixed height)
+    wall_axis: object = None        # the wall normal; None: the last axis
 
     @property
     def kT(self):
@@ -197,10 +201,15 @@ def load(source):
                    "precision": output.precision, "compression": output.compression,
                    "checkpoint_every": output.checkpoint_every},
     }
+    if particles.fixed_height is not None:
+        resolved["medium"].update(wall_distance=medium.wall_distance,
+                                  wall_axis=particles.fixed_height.axis)
+        resolved["particles"].update(particles.fixed_height.resolved())
     if measurement is not None:
         resolved["measurement"] = measurement.resolved
     spec = RunSpec(seed, particles, medium, tuple(terms), dynamics, output, resolved, measurement)
     _guard_step(spec, path)
+    surface.fixed_height_warnings(spec, f"{path}: " if path else "")
     return spec
 
 
@@ -224,8 +233,13 @@ def _medium(t):
         except Invalid:
             t.errors.add(t.where("viscosity"), visc, "a number > 0 or the string 'water'", "Pa s")
             viscosity = None
+    wall_distance = t.get("wall_distance", surface.WALL_DISTANCE, units="m")
+    wall_axis = t.get("wall_axis", surface.WALL_AXIS)
+    if wall_axis is not None and wall_distance is None and not t.has("wall_distance"):
+        t.errors.note(f"[medium] wall_axis = {wall_axis!r} without wall_distance: expected "
+                      "[medium] wall_distance (m) too")
     t.finish()
-    return Medium(temperature, viscosity)
+    return Medium(temperature, viscosity, wall_distance, wall_axis)
 
 
 def _particles(t, medium, regime, errors):
@@ -247,6 +261,10 @@ def _particles(t, medium, regime, errors):
             friction = [1.0] * d
         else:
             friction = [units.stokes_friction(medium.viscosity, radius)] * d
+    fixed = None
+    if medium.wall_distance is not None:
+        fixed = surface.fixed_height(t, medium, radius, friction, t.has("friction"), d)
+        friction = list(fixed.per_axis(d)) if fixed is not None else friction
     if mass is not None and density is not None:
         errors.note("[particles] mass and density are both given: expected one of them")
     if mass is None and density is not None:
@@ -262,7 +280,7 @@ def _particles(t, medium, regime, errors):
         count = _placement.count_from_density(initial, d)
     burn_in = t.get("burn_in", _NONNEG, units="s")
     t.finish()
-    return Particles(count, d, radius, density, mass, tuple(friction), initial, burn_in)
+    return Particles(count, d, radius, density, mass, tuple(friction), initial, burn_in, fixed)
 
 
 def _initial(t, count, d):

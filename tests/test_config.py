@@ -46,6 +46,9 @@ INVALID = [
     (("medium", "temperature"), -5.0, "a number > 0 (K)"),
     (("medium", "temperature"), float("inf"), "a number > 0 (K)"),
     (("medium", "viscosity"), "honey", "a number > 0 or the string 'water'"),
+    (("medium", "wall_distance"), -1e-6, "a number > 0 (m)"),
+    (("medium", "wall_distance"), 0.4e-6, "a number > [particles] radius = 5e-07"),
+    (("medium", "wall_axis"), 3, "an integer >= 0 and <= 2"),
     (("potential", 0, "stiffness"), [1e-6], "an array of 2 values"),
     (("potential", 0, "stiffness"), -1.0, "a number >= 0"),
     (("potential", 0, "center"), "middle", "a finite number"),
@@ -163,6 +166,22 @@ def test_toml_file_errors(tmp_path):
     with pytest.raises(ConfigError, match=r"wrong.toml: \[medium\] temperature = -3.0: "
                                           r"expected a number > 0 \(K\)"):
         config.load(wrong)
+
+
+def test_wall_distance_needs_a_radius_and_a_single_bulk_friction():
+    cfg = copy.deepcopy(BASE)
+    cfg["medium"]["wall_distance"] = 2e-6
+    cfg["particles"]["friction"] = [1e-8, 2e-8]
+    with pytest.raises(ConfigError, match=r"\[particles\] friction = \[1e-08, 2e-08\]: expected a single"):
+        config.load(cfg)
+    del cfg["particles"]["radius"], cfg["particles"]["density"]
+    cfg["particles"]["friction"] = 1e-8
+    with pytest.raises(ConfigError, match=r"wall_distance = 2e-06: the wall correction needs \[particles\] radius"):
+        config.load(cfg)
+    cfg = copy.deepcopy(BASE)
+    cfg["medium"]["wall_axis"] = 0
+    with pytest.raises(ConfigError, match="wall_axis = 0 without wall_distance"):
+        config.load(cfg)
 
 
 def test_per_particle_positions_from_an_array():

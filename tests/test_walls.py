@@ -134,3 +134,58 @@ def test_buoyant_mass_and_sedimentation_length():
     for rho, lg in ((1050.0, 15.14e-6), (2200.0, 0.666e-6)):
         mb = units.buoyant_mass(0.5e-6, rho, 997.05)
         assert kT / (mb * units.g_n) == pytest.approx(lg, rel=1e-3)
+
+
+# ------------------------------------------------------------------ fixed height
+
+def _trap_near_wall(h, seed=13):
+    return {"seed": seed,
+            "particles": {"count": 4, "dimensions": 3, "radius": 0.5e-6},
+            "medium": {"temperature": 295.15, "viscosity": "water", "wall_distance": h},
+            "potential": [{"type": "harmonic", "stiffness": 1e-5}],
+            "dynamics": {"dt": 1e-5, "duration": 1.0}, "output": {"every": 2}}
+
+
+def test_fixed_height_resolves_per_axis_friction():
+    from langsim import config
+    spec = config.load(_trap_near_wall(1.5e-6))
+    r = spec.resolved
+    g0 = units.stokes_friction(units.water_viscosity(295.15), 0.5e-6)
+    # section 3 table at h/a = 3: Faxen 1.22744, Brenner 1.56921
+    assert r["particles"]["bulk_friction"] == pytest.approx(g0, rel=1e-12)
+    assert r["particles"]["friction"] == pytest.approx([1.22744 * g0] * 2 + [1.56921 * g0], rel=5e-6)
+    assert r["particles"]["friction_parallel"] == r["particles"]["friction"][0]
+    assert r["particles"]["friction_perpendicular"] == r["particles"]["friction"][2]
+    assert r["medium"]["wall_distance"] == 1.5e-6 and r["medium"]["wall_axis"] == 2
+    # the normal may be an axis that is not simulated: then all axes are parallel
+    cfg = _trap_near_wall(1.5e-6)
+    cfg["particles"]["dimensions"] = 2
+    cfg["potential"][0]["stiffness"] = 1e-5
+    cfg["medium"]["wall_axis"] = 2
+    assert config.load(cfg).particles.friction == pytest.approx((1.22744 * g0,) * 2, rel=5e-6)
+
+
+def test_trapped_bead_corner_frequency_uses_the_wall_friction():
+    """A bead trapped 1.5 um (3 radii) above a wall: the corner frequencies are
+    kappa/(2 pi gamma) with gamma = 1.227 gamma0 along the wall (Faxen) and 1.569 gamma0
+    along the normal (Brenner 1961), so ``langsim check`` passes (PSD fit as
+    Berg-Sorensen & Flyvbjerg 2004); judged with the bulk Stokes friction instead, the
+    same data fail (the corner frequencies are 23 % and 57 % lower than bulk)."""
+    import copy
+    import warnings
+
+    import langsim
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        traj = langsim.run(_trap_near_wall(1.5e-6), progress=False)
+    report = langsim.check(traj)
+    rows = {r.quantity: r for r in report.rows}
+    assert report.passed, report.format_table()
+    for ax in "xyz":
+        assert rows[f"corner frequency {ax}"].status == "pass"
+    assert any("friction corrected for a wall" in n for n in report.notes)
+    bulk = copy.deepcopy(traj.config)
+    bulk["particles"]["friction"] = [bulk["particles"]["bulk_friction"]] * 3
+    wrong = langsim.check(type(traj)(traj.time, traj.positions, None, bulk, traj.status))
+    failed = {r.quantity for r in wrong.rows if r.status == "fail"}
+    assert {"corner frequency x", "corner frequency y", "corner frequency z"} <= failed
