@@ -131,7 +131,7 @@ def step_costs(n_particles, n_steps, repeat):
     no_user_params = np.zeros(0)
 
     def under():
-        schemes.advance_underdamped(x, v, 0, n_steps, 0.1, 1.0, 1.0, friction, letters,
+        schemes.advance_underdamped(x, v, 0, n_steps, 0.1, 1.0, 1.0, friction, friction, letters,
                                     fractions, k0, k1, codes, params, no_user_params, every,
                                     out_x, out_v, True, status)
 

@@ -221,6 +221,12 @@ class _Setup:
         self.friction = _vec(_get(cfg, "particles", "friction"), d, "particles.friction")
         if np.any(self.friction <= 0):
             raise ValueError(f"particles.friction must be > 0, got {self.friction.tolist()}")
+        # cold damping: the dynamics sees the total damping, the noise only the friction, so
+        # each axis is thermal at kT friction/(friction + feedback)
+        self.feedback = _vec(_get(cfg, "particles", "feedback", default=None), d, "particles.feedback")
+        self.thermal_friction = self.friction
+        self.friction = self.friction + self.feedback
+        self.kT_axis = self.kT * self.thermal_friction / self.friction
         self.mass = _get(cfg, "particles", "mass", default=None)
         self.regime = _get(cfg, "dynamics", "regime")
         self.scheme = _get(cfg, "dynamics", "scheme")
@@ -417,7 +423,7 @@ def check(traj, z_threshold=4.5, min_events=20, transient_factor=10.0):
                 report.notes.append(f"axis {AXES[a]}: too few frames for a blocking error; equipartition skipped")
                 continue
             try:
-                pred = theory.scheme_position_variance(s.scheme, s.kT, s.kappa[a], s.friction[a], s.dt, s.mass)
+                pred = theory.scheme_position_variance(s.scheme, s.kT_axis[a], s.kappa[a], s.friction[a], s.dt, s.mass)
             except ValueError as e:
                 report.notes.append(f"axis {AXES[a]}: {e}")
                 continue
@@ -433,13 +439,13 @@ def check(traj, z_threshold=4.5, min_events=20, transient_factor=10.0):
             if not np.isfinite(mv["variance_err"][a]):
                 report.notes.append(f"axis {AXES[a]}: too few frames for a velocity blocking error; skipped")
             elif kinds[a] in ("harmonic", "free"):
-                pred = theory.baoab_velocity_variance(s.kT, s.mass, s.dt, s.kappa[a] if kinds[a] == "harmonic" else 0.0)
+                pred = theory.baoab_velocity_variance(s.kT_axis[a], s.mass, s.dt, s.kappa[a] if kinds[a] == "harmonic" else 0.0)
                 report.rows.append(_row(f"velocity variance {AXES[a]}", mv["variance"][a], mv["variance_err"][a],
                                         pred, "BAOAB full-step (kT/m)(1 - w0^2 dt^2/4)",
                                         "Leimkuhler & Matthews 2013, AMRX; derived", "m^2/s^2", **kw))
             elif kinds[a] != "moving-trap":
                 report.rows.append(_row(f"velocity variance {AXES[a]}", mv["variance"][a], mv["variance_err"][a],
-                                        s.kT / s.mass, "kT/m (exact only as dt -> 0 for this force)",
+                                        s.kT_axis[a] / s.mass, "kT/m (exact only as dt -> 0 for this force)",
                                         "equipartition", "m^2/s^2", info=True, **kw))
     # ------------------------------------------------------------ free MSD
     free = [a for a in range(s.d) if kinds[a] == "free"]
@@ -456,14 +462,14 @@ def check(traj, z_threshold=4.5, min_events=20, transient_factor=10.0):
             steps = lag * s.every
             t = steps * s.dt
             for a in free:
-                D = s.kT / s.friction[a]
+                D = s.kT_axis[a] / s.friction[a]
                 if s.scheme == "euler-maruyama":
                     pred, form, src_ = 2 * D * t, "2 D t (exact for Euler-Maruyama)", SRC_MSD
                 elif s.scheme == "leimkuhler-matthews":
                     pred, form, src_ = float(theory.lm_free_msd(steps, D, s.dt)), "2 D (t - dt/2) (LM)", SRC_MSD
                 else:
-                    pred = float(theory.baoab_free_msd(steps, s.kT, s.mass, s.friction[a], s.dt))
-                    of = float(theory.ornstein_furth_msd(t, s.kT, s.mass, s.friction[a]))
+                    pred = float(theory.baoab_free_msd(steps, s.kT_axis[a], s.mass, s.friction[a], s.dt))
+                    of = float(theory.ornstein_furth_msd(t, s.kT_axis[a], s.mass, s.friction[a]))
                     form, src_ = f"BAOAB free-particle MSD (Ornstein-Furth: {of:.6g})", SRC_OF
                 report.rows.append(_row(f"MSD {AXES[a]} at {t:.3g} s", msd[a], err[a], pred, form, src_,
                                         "m^2", key=f"msd_{roles[lag]}.{AXES[a]}", **kw))
@@ -473,6 +479,9 @@ def check(traj, z_threshold=4.5, min_events=20, transient_factor=10.0):
     # ------------------------------------------------------------ double well
     if s.well is not None:
         _well_rows(report, traj, s, start, min_events, kw)
+    # ------------------------------------------------ cold damping, quantum limit, oscillators
+    from .oscillator_checks import extend
+    extend(report, traj, s, start, kw)
     return report
 
 
@@ -519,7 +528,7 @@ def _psd_rows(report, traj, s, a, start, kw):
     if N is None:
         return
     try:
-        acov = theory.scheme_position_autocovariance(s.scheme, np.arange(N), s.kT, k, g, s.dt, s.every)
+        acov = theory.scheme_position_autocovariance(s.scheme, np.arange(N), s.kT_axis[a], k, g, s.dt, s.every)
     except ValueError as e:
         report.notes.append(f"axis {AXES[a]}: {e}")
         return
@@ -529,7 +538,7 @@ def _psd_rows(report, traj, s, a, start, kw):
     fit = LorentzianFit(s.frame_dt, model=s.scheme, step_dt=s.dt, every=s.every, segment_length=N, f_max=f_max,
                         friction=g, axis=a, start=start).fit(traj.positions)
     infl = math.sqrt(1.0 + tau_f * tau_f / N)
-    fc, D = k / (2.0 * math.pi * g), s.kT / g
+    fc, D = k / (2.0 * math.pi * g), s.kT_axis[a] / g
     band = "" if f_max is None else f" up to {f_max:.4g} Hz"
     form = (f"ML fit{band} of the exact expected periodogram of the {s.scheme} process (step {s.dt:.3g} s, "
             f"every {s.every}, {N}-frame segments) in physical f_c, D; errors x {infl:.3f} for edge leakage")
@@ -563,7 +572,7 @@ def _baoab_psd_rows(report, traj, s, a, start, kw):
     2^14 frames, 8192-frame segments: 1.07 (variance), 0.93 (f0), 1.15 (Q), each
     +- 0.11; over the whole band it was 6.8 for the variance), so they are not inflated.
     """
-    k, m, g = s.kappa[a], s.mass, s.friction[a]
+    k, m, g, kT = s.kappa[a], s.mass, s.friction[a], s.kT_axis[a]
     w0 = math.sqrt(k / m)
     f0, Q = w0 / (2.0 * math.pi), math.sqrt(k * m) / g
     n = FrameSource(traj.positions).n_frames - start
@@ -595,11 +604,11 @@ def _baoab_psd_rows(report, traj, s, a, start, kw):
     report.rows.append(_row(f"resonance frequency {AXES[a]}", f0_m, f0_e, f0, "f0 = sqrt(k/m)/(2 pi); " + form,
                             src, "Hz", **kw))
     report.rows.append(_row(f"quality factor {AXES[a]}", Q_m, Q_e, Q, "Q = sqrt(k m)/gamma; " + form, src, "", **kw))
-    report.rows.append(_row(f"stiffness {AXES[a]} (PSD)", s.kT / var, s.kT / var * var_e / var, k,
+    report.rows.append(_row(f"stiffness {AXES[a]} (PSD)", kT / var, kT / var * var_e / var, k,
                             "k = kT/variance (fitted peak area; exact for BAOAB positions); " + form, src,
                             "N/m", key=f"stiffness_psd.{AXES[a]}", **kw))
     report._plot_data[f"psd {AXES[a]}"] = {"f": f, "P": P, "fit": baoab_psd(f, f0_m, Q_m, var, s.dt, s.every, N),
-                                          "predicted": baoab_psd(f, f0, Q, s.kT / k, s.dt, s.every, N),
+                                          "predicted": baoab_psd(f, f0, Q, kT / k, s.dt, s.every, N),
                                           "label": "fitted BAOAB spectrum"}
 
 
@@ -618,19 +627,20 @@ def _curv(U, x, h):
 def _well_rows(report, traj, s, start, min_events, kw):
     U = s.axis_potential()
     a, dU, L, c = s.well
+    kT = s.kT_axis[a]
     if U is None:
         report.notes.append("double well coupled to other potential terms: histogram and rate checks skipped")
         return
     xa, xt, xb = _extrema(U, c, L)
     grid = np.linspace(c - 3 * L, c + 3 * L, 6001)
     ug = U(grid)
-    inside = grid[ug - ug.min() < 40.0 * s.kT]
+    inside = grid[ug - ug.min() < 40.0 * kT]
     support = (float(inside[0]), float(inside[-1]))
     h = 1e-4 * L
     k_min, k_top = _curv(U, xa, h), -_curv(U, xt, h)
     bias = _scheme_bias(s, max(k_min, _curv(U, xb, h)), a)
     try:
-        bt = BoltzmannTest(U, s.kT, support, n_bins=10, axis=a, start=start).fit(traj.positions)
+        bt = BoltzmannTest(U, kT, support, n_bins=10, axis=a, start=start).fit(traj.positions)
         resolution = float(np.median(bt.errors_ / bt.probabilities_))
         gated = bias > 0.25 * resolution
         status = "info" if gated else ("pass" if bt.p_value_ >= P_FAIL else "fail")
@@ -641,7 +651,7 @@ def _well_rows(report, traj, s, start, min_events, kw):
                                + (" (too coarse a step: information only)" if gated else "")))
         report._plot_data["histogram"] = {"edges": bt.edges_, "observed": bt.observed_, "errors": bt.errors_,
                                           "probabilities": bt.probabilities_, "support": support,
-                                          "U": U, "kT": s.kT}
+                                          "U": U, "kT": kT}
     except InsufficientDataError as e:
         report.notes.append(f"Boltzmann histogram skipped: {e}")
     try:
@@ -655,7 +665,7 @@ def _well_rows(report, traj, s, start, min_events, kw):
         for name, rate, err, x0, x1, cnt in (("A->B", er.rate_ab_, er.rate_ab_err_, xa, xb, er.dwell_a_.size),
                                              ("B->A", er.rate_ba_, er.rate_ba_err_, xb, xa, er.dwell_b_.size)):
             key = "escape_rate." + name.replace("->", "").lower()
-            pred = 1.0 / theory.mfpt(U, x0, x1, s.kT, s.friction[a], rtol=1e-8)
+            pred = 1.0 / theory.mfpt(U, x0, x1, kT, s.friction[a], rtol=1e-8)
             if cnt < min_events:
                 report.notes.append(f"escape {name}: {cnt} transitions < {min_events}; rate check skipped")
                 continue
@@ -663,16 +673,16 @@ def _well_rows(report, traj, s, start, min_events, kw):
             report.rows.append(_row(f"escape rate {name}", rate, err, pred,
                                     "1/MFPT minimum to minimum (exact double integral); core-set counting",
                                     SRC_HTB, "1/s", info=gated, note=f"{cnt} transitions", key=key, **kw))
-        kod = theory.kramers_rate_overdamped(k_min, k_top, s.friction[a], barrier, s.kT)
+        kod = theory.kramers_rate_overdamped(k_min, k_top, s.friction[a], barrier, kT)
         report.rows.append(_row("escape rate (Kramers, overdamped)", er.rate_, er.rate_err_, kod,
                                 "asymptotic; expected error about +0.5 kT/dU relative "
-                                f"({0.5 * s.kT / barrier:.1%})", SRC_HTB, "1/s", info=True,
+                                f"({0.5 * kT / barrier:.1%})", SRC_HTB, "1/s", info=True,
                                 key="escape_rate_kramers", **kw))
     else:
         m = s.mass
         Ib = theory.barrier_action(U, xa, xt, m)
         sym = abs(float(U(xb) - U(xa))) < 1e-6 * barrier
-        kt = theory.kramers_rate_turnover(k_min, k_top, m, s.friction[a], Ib, barrier, s.kT, symmetric_double_well=sym)
+        kt = theory.kramers_rate_turnover(k_min, k_top, m, s.friction[a], Ib, barrier, kT, symmetric_double_well=sym)
         report.rows.append(_row("escape rate (Mel'nikov-Meshkov)", er.rate_, er.rate_err_, kt,
                                 "asymptotic turnover rate" + (" A^2(D)/A(2D) k_SD" if sym else " A(D) k_SD")
                                 + "; expect errors of order 10 % at 5 kT", SRC_MM, "1/s", info=True,

@@ -260,6 +260,24 @@ def _term_line(term):
     return f"{term['type']}: " + ", ".join(keys)
 
 
+def _own_terms(cfg, lines):
+    """An oscillator's own quantities in place of particle and potential lines; a gas medium."""
+    from . import gas, oscillators, theory
+    own = oscillators.describe(cfg)
+    if own is not None:
+        lines = [ln for ln in lines if not ln.startswith(("particles ", "potential "))]
+        lines[3:3] = own
+    medium = gas.describe(cfg)
+    if medium is not None:
+        lines = [ln + ", " + medium if ln.startswith("medium ") else ln for ln in lines]
+    feedback = cfg["particles"].get("feedback")
+    if own is None and feedback and any(feedback):
+        T = [theory.cold_damping_temperature(cfg["medium"]["temperature"], g, fb)
+             for g, fb in zip(cfg["particles"]["friction"], feedback)]
+        lines.append(f"feedback     cold damping {_fmt(feedback)} kg/s, effective temperature {_fmt(T)} K")
+    return lines
+
+
 def cmd_info(args):
     from .trajectory import load
     with load(args.file) as traj:
@@ -290,6 +308,7 @@ def cmd_info(args):
             lines.append("potential    none (free diffusion)")
         for i, term in enumerate(terms):
             lines.append(("potential    " if i == 0 else "             ") + _term_line(term))
+        lines = _own_terms(cfg, lines)
         interval = dyn["dt"] * out["every"]
         lines += [
             f"seed         {cfg['seed']}",

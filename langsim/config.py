@@ -10,10 +10,12 @@ import math
 import os
 import tomllib
 import warnings
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
+from . import gas as _gas
+from . import oscillators as _osc
 from . import potentials as _pot
 from . import seeding, surface, units
 from .measurement import placement as _placement
@@ -55,6 +57,7 @@ class Particles:
     burn_in: float
     #: surface.FixedHeight of [medium] wall_distance, or None
     fixed_height: object = None
+    feedback: tuple = None     # per axis, kg/s: cold damping (extra damping without noise)
 
 
 @dataclass(frozen=True)
@@ -63,6 +66,7 @@ class Medium:
     viscosity: object
     wall_distance: object = None    # m, bead centre to a plane wall (fixed height)
     wall_axis: object = None        # the wall normal; None: the last axis
+    gas: object = None         # a langsim.gas.Gas, or None for a liquid
 
     @property
     def kT(self):
@@ -104,10 +108,21 @@ class RunSpec:
     output: Output
     resolved: dict
     measurement: object = None     # langsim.measurement.spec.Measurement, or None
+    #: units of the recorded coordinates (an oscillator's own: rad, C, ...)
+    units: dict = field(default_factory=lambda: _osc.units_of(None))
 
     @property
     def kT(self):
         return self.medium.kT
+
+    def damping(self):
+        """Total damping per axis, kg/s: friction plus cold-damping feedback."""
+        fb = self.particles.feedback or (0.0,) * self.particles.dimensions
+        return np.array(self.particles.friction) + np.array(fb)
+
+    def noise_kT(self):
+        """Thermal energy of the noise per axis, J: kT friction/(friction + feedback)."""
+        return self.kT * np.array(self.particles.friction) / self.damping()
 
     @property
     def n_frames(self):
@@ -160,6 +175,7 @@ def load(source):
     """
     mapping, path = read(source)
     errors = Errors(path)
+    mapping, oscillator = _osc.translate(mapping, errors)
     top = Table(errors, "", mapping, key_format="{key}")
     seed = top.get("seed", integer(0, seeding.MAX_SEED))
     if seed is None:
@@ -207,19 +223,41 @@ def load(source):
         resolved["particles"].update(particles.fixed_height.resolved())
     if measurement is not None:
         resolved["measurement"] = measurement.resolved
-    spec = RunSpec(seed, particles, medium, tuple(terms), dynamics, output, resolved, measurement)
+    if particles.feedback is not None:
+        resolved["particles"]["feedback"] = list(particles.feedback)
+    if medium.gas is not None:
+        resolved["medium"].update(medium.gas.resolved())
+        if particles.radius is not None:
+            resolved["particles"]["knudsen"] = medium.gas.knudsen(particles.radius)
+    if oscillator is not None:
+        resolved["oscillator"] = oscillator
+    spec = RunSpec(seed, particles, medium, tuple(terms), dynamics, output, resolved, measurement,
+                   _osc.units_of(oscillator))
     _guard_step(spec, path)
     surface.fixed_height_warnings(spec, f"{path}: " if path else "")
+    _osc.quantum_warnings(spec, path)
     return spec
 
 
 def _medium(t):
     temperature = t.get("temperature", _POS, default=295.15, units="K")
+    gas = _gas.read(t, temperature)
+    if t.has("gas"):
+        for key in ("wall_distance", "wall_axis"):
+            if t.has(key):
+                t.raw(key)
+                t.errors.note(f"{t.where(key)} with [medium] gas: expected no wall correction (the Faxen "
+                              "and Brenner corrections are for a liquid, not a rarefied gas)")
+        t.finish()
+        # 1.0 is a placeholder when the gas is invalid: its error is already reported
+        return Medium(temperature, 1.0 if gas is None else gas.viscosity, gas=gas)
     visc = t.raw("viscosity", "water")
     if visc == "water":
         lo, hi = units.WATER_T_RANGE
         if lo <= temperature <= hi:
             viscosity = units.water_viscosity(temperature)
+        elif not t.has("viscosity"):
+            viscosity = None     # the default does not apply (a cold oscillator); refused where needed
         else:
             t.errors.add(t.where("viscosity"), visc,
                          f"a number > 0 (Pa s): 'water' needs a temperature between {lo} and {hi} K, "
@@ -259,6 +297,9 @@ def _particles(t, medium, regime, errors):
             errors.note("[medium] viscosity is missing: Stokes friction needs it, "
                         "or give [particles] friction (kg/s)")
             friction = [1.0] * d
+        elif medium.gas is not None:
+            _gas.check_knudsen(medium.gas, radius, errors)
+            friction = [medium.gas.sphere_friction(radius)] * d
         else:
             friction = [units.stokes_friction(medium.viscosity, radius)] * d
     fixed = None
@@ -275,12 +316,17 @@ def _particles(t, medium, regime, errors):
     if regime == "underdamped" and mass is None and density is None:
         errors.note("[particles] mass is missing: the underdamped regime needs mass (kg) "
                     "or density (kg/m^3) with radius")
+    feedback = t.get("feedback", per_axis(_NONNEG, d), units="kg/s")
+    if feedback is not None and regime != "underdamped" and any(feedback):
+        t.bad("feedback", "0: cold damping acts on the velocity and needs [dynamics] regime = "
+                          "'underdamped'", "kg/s")
     initial = _initial(t, count, d)
     if getattr(initial, "density", None) is not None:
         count = _placement.count_from_density(initial, d)
     burn_in = t.get("burn_in", _NONNEG, units="s")
     t.finish()
-    return Particles(count, d, radius, density, mass, tuple(friction), initial, burn_in, fixed)
+    return Particles(count, d, radius, density, mass, tuple(friction), initial, burn_in, fixed,
+                     None if feedback is None else tuple(feedback))
 
 
 def _initial(t, count, d):

@@ -96,6 +96,8 @@ class Engine:
             self.kernel_od, self.kernel_ud = kernels_for(user)
             self.extra_params = user.parameters
         self.friction = np.array(spec.particles.friction, dtype=np.float64)
+        # underdamped O step: total damping (friction + cold-damping feedback), noise from friction
+        self.damping = np.ascontiguousarray(spec.damping(), dtype=np.float64)
         dyn = spec.dynamics
         if dyn.regime == "underdamped":
             split = SPLITTINGS[dyn.scheme]
@@ -116,7 +118,7 @@ class Engine:
                            self.extra_params, np.int64(every), out_x, status)
         else:
             self.kernel_ud(x, v, np.int64(step0), np.int64(n_steps), dt, kT,
-                           float(spec.particles.mass), self.friction, self.letters,
+                           float(spec.particles.mass), self.damping, self.friction, self.letters,
                            self.fractions, k0, k1, codes, params, self.extra_params,
                            np.int64(every), out_x, out_v,
                            out_v.shape[0] > 0 and spec.output.velocities, status)

@@ -81,8 +81,9 @@ def initial_positions(spec, rng):
     if not spec.terms:
         return x
     if all(t.separable for t in spec.terms):
+        kT = spec.noise_kT()   # kT per axis (lower under cold damping)
         for a in range(d):
-            values = sample_axis(spec.terms, a, d, spec.kT, rng.random(n))
+            values = sample_axis(spec.terms, a, d, kT[a], rng.random(n))
             if values is not None:
                 x[:, a] = values
         return x
@@ -96,6 +97,6 @@ def initial_positions(spec, rng):
 
 
 def initial_velocities(spec, rng):
-    """Maxwell-Boltzmann velocities (count, dimensions) in m/s."""
+    """Maxwell-Boltzmann velocities (count, dimensions) in m/s (at each axis' noise temperature)."""
     p = spec.particles
-    return rng.standard_normal((p.count, p.dimensions)) * np.sqrt(spec.kT / p.mass)
+    return rng.standard_normal((p.count, p.dimensions)) * np.sqrt(spec.noise_kT() / p.mass)

@@ -42,6 +42,10 @@ References
        exact solution of the Kramers problem", J. Chem. Phys. 85, 1018 (1986).
 .. [10] V. I. Mel'nikov, "The Kramers problem: fifty years of development",
         Phys. Rep. 209, 1 (1991).
+.. [11] H. Nyquist, "Thermal agitation of electric charge in conductors",
+        Phys. Rev. 32, 110 (1928); J. B. Johnson, Phys. Rev. 32, 97 (1928).
+.. [12] M. Planck (1900); H. B. Callen, T. A. Welton, Phys. Rev. 83, 34 (1951)
+        (mean energy of a quantum oscillator with its zero point; from memory).
 
 Exact finite-step results for the schemes ([D] below) were derived by solving
 the linear recursions (2x2 discrete Lyapunov equations) and cross-checked
@@ -52,7 +56,7 @@ import math
 import numpy as np
 from scipy import integrate, optimize
 
-from .units import k_B
+from .units import hbar, k_B
 
 __all__ = [
     "thermal_energy", "equipartition_variance", "velocity_variance",
@@ -73,6 +77,8 @@ __all__ = [
     "kramers_rate_spatial_diffusion", "kramers_rate_energy_diffusion",
     "barrier_action", "melnikov_meshkov_factor", "kramers_rate_turnover",
     "quartic_double_well", "double_well_curvatures", "double_well_action",
+    "cold_damping_temperature", "quantum_ratio", "planck_energy_ratio", "planck_mean_energy",
+    "circuit_voltage_psd",
 ]
 
 
@@ -933,3 +939,50 @@ def double_well_action(barrier, separation, mass):
     """
     return 4.0 / 3.0 * _positive("separation", separation) * math.sqrt(
         _positive("mass", mass) * _positive("barrier", barrier))
+
+
+# ---------------------------------------------------- cold damping, quantum limit, circuits
+def cold_damping_temperature(temperature, friction, feedback):
+    """Effective temperature T gamma/(gamma + gamma_fb) of a mode under velocity feedback, K.
+
+    Feedback adds damping gamma_fb without noise; the Langevin equation with
+    total damping gamma + gamma_fb and noise 2 gamma kT is the thermal one at
+    T gamma/(gamma + gamma_fb) (fluctuation-dissipation; common practice).
+    """
+    return temperature * friction / (friction + feedback)
+
+
+def quantum_ratio(omega, kT):
+    """x = hbar omega / kT of a mode of angular frequency ``omega`` (rad/s)."""
+    return hbar * omega / kT
+
+
+def planck_energy_ratio(x):
+    """Mean energy of a quantum oscillator over kT at x = hbar omega/kT [12].
+
+    Returns ``(with_zero_point, thermal)``: (x/2) coth(x/2) = x (1/2 + 1/(e^x - 1))
+    (= 1 + x^2/12 - ...) and the thermal part alone x/(e^x - 1) (= 1 - x/2 + ...).
+    Both tend to 1, the classical kT, as x -> 0 (reference sheet section 16).
+    """
+    x = np.asarray(x, dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        thermal = np.where(x > 0, x / np.expm1(x), 1.0)
+    return thermal + x / 2.0, thermal
+
+
+def planck_mean_energy(omega, kT):
+    """Planck mean energy hbar omega (1/2 + 1/(e^x - 1)) of a mode, zero point included, J [12]."""
+    return planck_energy_ratio(quantum_ratio(omega, kT))[0] * kT
+
+
+def circuit_voltage_psd(f, kT, resistance, capacitance, inductance=0.0):
+    """One-sided capacitor-voltage noise density of a series RLC (or RC) circuit, V^2/Hz.
+
+    The resistor's Johnson noise 4 kT R [11] filtered by the circuit,
+    S_V(f) = 4 kT R / |1 - w^2 L C + i w R C|^2, w = 2 pi f; for L = 0 the RC
+    low-pass 4 kT R/(1 + (w R C)^2). Integrates to kT/C (reference sheet
+    sections 9 and 17).
+    """
+    w = 2.0 * math.pi * np.asarray(f, dtype=float)
+    return 4.0 * kT * resistance / ((1.0 - w * w * inductance * capacitance) ** 2
+                                    + (w * resistance * capacitance) ** 2)

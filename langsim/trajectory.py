@@ -53,12 +53,16 @@ class Trajectory:
         Full-step velocities (after BAOAB's last B), when recorded.
     config : dict
         The resolved configuration (SI values, defaults filled in).
+    units : dict
+        Units of ``positions`` and ``velocities`` ("m", "m/s"; an oscillator's
+        own, e.g. "rad", "rad/s" or "C", "A").
     status : Status
     path : str or None
         The backing file, None for an in-memory trajectory.
     """
 
-    def __init__(self, time, positions, velocities, config, status, path=None, file=None):
+    def __init__(self, time, positions, velocities, config, status, path=None, file=None, units=None):
+        self.units = dict(units or {"positions": UNITS["positions"], "velocities": UNITS["velocities"]})
         self.time = time
         self.positions = positions
         self.velocities = velocities
@@ -134,7 +138,8 @@ class MemorySink:
     def finish(self, status):
         n = self.n_written
         vel = None if self.velocities is None else self.velocities[:n]
-        return Trajectory(self.time[:n], self.positions[:n], vel, self.spec.resolved, status)
+        return Trajectory(self.time[:n], self.positions[:n], vel, self.spec.resolved, status,
+                          units=self.spec.units)
 
 
 # --------------------------------------------------------------------- HDF5
@@ -461,6 +466,7 @@ class HDF5Sink:
         a["complete"] = False
         a["status"] = _status_json(Status(False, "running"))
         a["n_frames"] = 0
+        units = {**UNITS, **spec.units}     # an oscillator's own units (rad, C, ...)
         kw = {}
         if out.compression == "gzip":
             kw = {"compression": "gzip", "compression_opts": 4, "shuffle": True}
@@ -474,17 +480,17 @@ class HDF5Sink:
             ds = f.create_dataset(name, shape=(0, p.count, p.dimensions),
                                   maxshape=(None, p.count, p.dimensions), dtype=dtype,
                                   chunks=chunks, **kw)
-            ds.attrs["units"] = UNITS[name]
+            ds.attrs["units"] = units[name]
         cp = f.create_group("checkpoint")
         cp.attrs["step"] = -1
         cp.attrs["n_frames"] = 0
         cp.attrs["slot"] = -1
         cp.attrs["wall_time"] = 0.0
         cp.create_dataset("positions", shape=(2, p.count, p.dimensions), dtype=np.float64)
-        cp["positions"].attrs["units"] = UNITS["positions"]
+        cp["positions"].attrs["units"] = units["positions"]
         if spec.dynamics.regime == "underdamped":
             cp.create_dataset("velocities", shape=(2, p.count, p.dimensions), dtype=np.float64)
-            cp["velocities"].attrs["units"] = UNITS["velocities"]
+            cp["velocities"].attrs["units"] = units["velocities"]
         if kw:          # frames of an unfinished compressed chunk wait here (see _buffer)
             for name in names:
                 cp.create_dataset("tail_" + name, shape=(2,) + chunks, dtype=dtype)
@@ -831,6 +837,8 @@ def load(path):
     except BaseException:
         f.close()
         raise
-    traj = Trajectory(time, pos, vel, config, status, path=path, file=f)
+    units = {name: _attr_str(f[name].attrs.get("units", UNITS[name])) for name in ("positions", "velocities")
+             if name in f}
+    traj = Trajectory(time, pos, vel, config, status, path=path, file=f, units=units)
     traj.state = state
     return traj

@@ -11,6 +11,8 @@ results end in ``_``):
 - :class:`EscapeRate` -- core-set transition counting
 - :class:`CovarianceDiffusion`, :class:`OptimalMSDFit` -- D and localization error from
   measured tracks; :class:`BlurredTrap` -- trap stiffness through motion blur
+- :class:`EffectiveTemperature` -- a mode's temperature three ways
+- :class:`BoltzmannFromDiffusion` -- k_B and N_A from the MSD (Perrin)
 """
 from .boltzmann import BoltzmannTest, boltzmann_test, equal_probability_edges
 from .diffusion import BlurredTrap, CovarianceDiffusion, OptimalMSDFit, track_segments
@@ -21,10 +23,12 @@ from .msd import (MSD, RelaxationStiffness, lag_autocorrelation, mean_msd, msd_a
 from .spectra import LorentzianFit, OscillatorFit, segment_averaged_periodogram, fit_psd_model
 from .stats import (FrameSource, InsufficientDataError, NotFittedError, blocking,
                     integrated_autocorr_time)
+from .temperature import BoltzmannFromDiffusion, EffectiveTemperature
 
 __all__ = ["BlurredTrap", "CovarianceDiffusion", "OptimalMSDFit", "track_segments", "BoltzmannTest", "boltzmann_test", "equal_probability_edges", "Equipartition",
            "axis_moments", "EscapeRate", "dwell_times", "rate_from_events", "MSD",
            "RelaxationStiffness", "lag_autocorrelation", "mean_msd", "msd_at_lags", "msd_direct",
            "msd_fft", "velocity_autocorrelation", "LorentzianFit", "OscillatorFit",
            "segment_averaged_periodogram", "fit_psd_model", "FrameSource", "InsufficientDataError",
-           "NotFittedError", "blocking", "integrated_autocorr_time"]
+           "NotFittedError", "blocking", "integrated_autocorr_time", "EffectiveTemperature",
+           "BoltzmannFromDiffusion"]

@@ -168,15 +168,19 @@ def advance_overdamped(x, step0, n_steps, dt, kT, friction, averaged_noise,
 
 
 @njit(parallel=True, cache=True)
-def advance_underdamped(x, v, step0, n_steps, dt, kT, mass, friction,
+def advance_underdamped(x, v, step0, n_steps, dt, kT, mass, friction, noise_friction,
                         letters, fractions, k0, k1, codes, params, extra_params, every,
                         out_x, out_v, record_v, status):
     """Advance underdamped particles by a splitting scheme, in place.
 
     ``letters`` (int64) and ``fractions`` (float64) spell the splitting, e.g.
     BAOAB = (B, A, O, A, B) with (0.5, 0.5, 1, 0.5, 0.5). The O letter is the
-    exact update v <- c v + sqrt((1 - c^2) kT/m) xi with c = exp(-gamma h/m);
-    each O letter of a step draws its own variates (components o*d .. o*d+d-1).
+    exact update v <- c v + sqrt((1 - c^2) kT_noise/m) xi with c = exp(-gamma h/m),
+    gamma = ``friction`` (per axis, total damping) and kT_noise = kT
+    ``noise_friction``/``friction``: damping without noise (cold damping,
+    friction > noise_friction) lowers the axis' temperature; equal arrays give
+    the thermal O step. Each O letter of a step draws its own variates
+    (components o*d .. o*d+d-1).
     Recorded velocities are those at the end of the full step.
     """
     n_particles, d = x.shape
@@ -192,7 +196,8 @@ def advance_underdamped(x, v, step0, n_steps, dt, kT, mass, friction,
         for a in range(d):
             c = math.exp(-friction[a] * fractions[j] * dt / mass)
             ou_c[j, a] = c
-            ou_amp[j, a] = math.sqrt((1.0 - c * c) * kT / mass)
+            ratio = noise_friction[a] / friction[a]      # exactly 1.0 without feedback
+            ou_amp[j, a] = math.sqrt((1.0 - c * c) * kT * ratio / mass)
     n_tiles = (n_particles + TILE - 1) // TILE
     for tile in prange(n_tiles):
         p0 = tile * TILE
