@@ -35,7 +35,7 @@ import numpy as np
 
 from .. import units
 from .equipartition import axis_moments
-from .spectra import _default_segment, baoab_model, blocked_periodogram, fit_psd_model, scheme_model
+from .spectra import _default_segment, baoab_model, segment_averaged_periodogram, fit_psd_model, scheme_model
 from .stats import Estimator, FrameSource, InsufficientDataError, single_axis
 
 __all__ = ["EffectiveTemperature", "BoltzmannFromDiffusion", "spectrum_temperature"]
@@ -146,7 +146,7 @@ class EffectiveTemperature(Estimator):
         src = FrameSource(positions, axis=self.axis)
         n = src.n_frames - int(self.start)
         N = self.segment_length or _default_segment(n)
-        f, P, count = blocked_periodogram(positions, dt, N, self.start, self.axis)
+        f, P, count = segment_averaged_periodogram(positions, dt, N, self.start, self.axis)
         if self.f_max is not None:
             keep = f <= self.f_max
             f, P = f[keep], P[keep]
