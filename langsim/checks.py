@@ -710,6 +710,7 @@ def write_plots(traj, report, directory):
         data = check(traj)._plot_data
     s = _Setup(traj.config)
     paths = []
+    unit = (getattr(traj, "units", None) or {}).get("positions", "m")   # an oscillator's own: rad, C
 
     def save(fig, name):
         p = os.path.join(directory, name)
@@ -727,11 +728,11 @@ def write_plots(traj, report, directory):
         ax.loglog(t, msd[1:, a], ".", ms=3, label=f"measured {AXES[a]}")
         kind = s.axis_kind(a)
         if kind == "free":
-            ax.loglog(t, 2 * s.kT / s.friction[a] * t, "-", label=f"2Dt {AXES[a]}")
+            ax.loglog(t, 2 * s.kT_axis[a] / s.friction[a] * t, "-", label=f"2Dt {AXES[a]}")
         elif kind == "harmonic" and s.regime == "overdamped":
-            ax.loglog(t, theory.ou_msd(t, s.kT, s.kappa[a], s.friction[a]), "-", label=f"OU {AXES[a]}")
+            ax.loglog(t, theory.ou_msd(t, s.kT_axis[a], s.kappa[a], s.friction[a]), "-", label=f"OU {AXES[a]}")
     ax.set_xlabel("lag time (s)")
-    ax.set_ylabel("MSD (m$^2$)")
+    ax.set_ylabel(f"MSD ({unit}$^2$)")
     ax.legend(fontsize=7)
     save(fig, "msd.png")
     for key, d in data.items():
@@ -741,7 +742,7 @@ def write_plots(traj, report, directory):
             ax.loglog(d["f"], d["fit"], "-", label=d.get("label", "fitted model"))
             ax.loglog(d["f"], d["predicted"], "--", label="predicted (exact expectation)")
             ax.set_xlabel("f (Hz)")
-            ax.set_ylabel("two-sided PSD (m$^2$/Hz)")
+            ax.set_ylabel(f"two-sided PSD ({unit}$^2$/Hz)")
             ax.legend(fontsize=7)
             save(fig, key.replace(" ", "_") + ".png")
     if "histogram" in data:
@@ -756,8 +757,8 @@ def write_plots(traj, report, directory):
         ax.plot(x, w, "-", label="Boltzmann density")
         ax.errorbar(0.5 * (edges[1:] + edges[:-1]), d["observed"] / width, d["errors"] / width, fmt="o", ms=3,
                     label="measured (equal-probability bins)")
-        ax.set_xlabel("position (m)")
-        ax.set_ylabel("density (1/m)")
+        ax.set_xlabel(f"position ({unit})")
+        ax.set_ylabel(f"density (1/{unit})")
         ax.legend(fontsize=7)
         save(fig, "histogram.png")
     if "dwell" in data:

@@ -22,6 +22,7 @@ from scipy import signal
 
 import langsim
 from langsim import cli, config, theory
+from langsim.analysis import EffectiveTemperature
 from langsim.checks import check
 from langsim.oscillator_checks import expected_welch
 from langsim.units import k_B
@@ -258,6 +259,12 @@ def test_rc_kT_over_C_and_johnson_density_against_welch(rc_run):
     wrong = with_config(traj, lambda c: (c["particles"].update(friction=[2e3]),
                                          c["oscillator"].update(resistance=2e3)))
     assert {"voltage noise density at f_c", "resistance (PSD)"} <= failed(check(wrong))
+    # the temperature from the spectrum with the known resistance: kT = D R (overdamped, EM model)
+    est = EffectiveTemperature("spectrum", friction=R_SHEET, dt=10 * dt, regime="overdamped",
+                               scheme="euler-maruyama", step_dt=dt, every=10, segment_length=8192,
+                               start=200).fit(traj.positions)
+    assert abs(z_score(est.temperature_, est.temperature_err_, T_SHEET)) < Z_MAX
+    assert abs(z_score(est.temperature_, est.temperature_err_, 1.1 * T_SHEET)) > Z_MAX
 
 
 def test_rlc_resonance_and_current_variance():
