@@ -170,6 +170,9 @@ class CheckReport:
 DISPLAY_UNITS = {
     "m": ("nm", 1e9), "m^2": ("nm^2", 1e18), "m^2/s": ("um^2/s", 1e12), "N/m": ("pN/nm", 1e3),
     "m^2/s^2": ("um^2/s^2", 1e12), "m/s": ("um/s", 1e6),
+    # an [oscillator]'s own quantities (langsim.oscillator_checks)
+    "rad": ("urad", 1e6), "rad^2": ("urad^2", 1e12), "V": ("uV", 1e6), "V^2": ("uV^2", 1e12),
+    "V^2/Hz": ("nV^2/Hz", 1e18), "A^2": ("nA^2", 1e18), "F": ("pF", 1e12),
 }
 
 
