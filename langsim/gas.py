@@ -15,7 +15,8 @@ from .validation import Invalid, choice, number
 
 #: Values of ``[medium] slip`` (the first is the default).
 SLIP_LAWS = ("kim-2005", "davies-1945", "epstein")
-#: Knudsen number below which the free-molecular ("epstein") law is refused.
+#: Knudsen number below which the free-molecular ("epstein") law is refused: the
+#: transition regime reaches Kn ~ 10 (reference sheet section 15, "Regimes").
 EPSTEIN_MIN_KNUDSEN = 10.0
 
 

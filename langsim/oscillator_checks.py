@@ -27,6 +27,7 @@ import numpy as np
 from . import theory
 from .analysis import EffectiveTemperature
 from .analysis.stats import FrameSource
+from .checks import AXES, Row, _row, _segment     # checks imports this module only inside check()
 from .oscillators import KINDS, QUANTUM_WARN
 from .units import k_B
 
@@ -40,11 +41,6 @@ SRC_JOHNSON = ("Johnson 1928 and Nyquist 1928, Phys. Rev. 32; circuit as Langevi
                "(reference sheet sections 9, 17); estimate scipy.signal.welch")
 SRC_PLANCK = "Planck mean energy with zero point (Callen & Welton 1951, Phys. Rev. 83, 34; from memory)"
 SRC_COLD = "cold damping: fluctuation-dissipation with noiseless feedback damping (common practice)"
-
-
-def _row(*args, **kw):
-    from .checks import _row as make
-    return make(*args, **kw)
 
 
 def extend(report, traj, s, start, kw):
@@ -64,7 +60,6 @@ def extend(report, traj, s, start, kw):
 
 # --------------------------------------------------------------- cold damping
 def _temperature_rows(report, traj, s, a, start):
-    from .checks import AXES, _segment
     T = s.kT / k_B
     T_eff = theory.cold_damping_temperature(T, s.thermal_friction[a], s.feedback[a])
     k, m, g = s.kappa[a], s.mass, s.friction[a]
@@ -100,7 +95,6 @@ def _temperature_rows(report, traj, s, a, start):
 
 # --------------------------------------------------------------- quantum limit
 def _quantum_rows(report, s, harmonic):
-    from .checks import AXES, Row
     measured = {r.quantity: r for r in report.rows}
     for a in harmonic:
         under = s.regime == "underdamped"
