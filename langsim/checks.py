@@ -273,8 +273,12 @@ class _Setup:
                 a = int(term.get("axis", 0))
                 self.nonlinear[a] = "periodic"
                 self.on_axis.append(("periodic", a, term))
-            elif kind == "constant-force":
-                self.force += _vec(term.get("force"), d, "constant-force.force")
+            elif kind in ("constant-force", "gravity"):
+                self.force += _vec(term.get("force"), d, f"{kind}.force")
+            elif kind == "wall":
+                self.nonlinear[int(term["axis"])] = "wall"
+                if term.get("hydrodynamic"):   # the friction of every axis depends on the height
+                    self.nonlinear = [k or "near-wall" for k in self.nonlinear]
             elif kind in ("gaussian-well", "expression"):
                 self.coupled = True
                 self.nonlinear = [kind] * d
@@ -485,6 +489,10 @@ def check(traj, z_threshold=4.5, min_events=20, transient_factor=10.0):
     # ------------------------------------------------ cold damping, quantum limit, oscillators
     from .oscillator_checks import extend
     extend(report, traj, s, start, kw)
+    # ------------------------------------------------------------ wall
+    if "wall" in kinds:
+        from .wall_checks import extend as _wall_rows
+        _wall_rows(report, traj, s, start, kw)
     return report
 
 
@@ -757,11 +765,13 @@ def write_plots(traj, report, directory):
         edges = np.concatenate([[d["support"][0]], d["edges"], [d["support"][1]]])
         width = np.diff(edges)
         fig, ax = plt.subplots()
-        ax.plot(x, w, "-", label="Boltzmann density")
-        ax.errorbar(0.5 * (edges[1:] + edges[:-1]), d["observed"] / width, d["errors"] / width, fmt="o", ms=3,
-                    label="measured (equal-probability bins)")
-        ax.set_xlabel(f"position ({unit})")
-        ax.set_ylabel(f"density (1/{unit})")
+        k = d.get("scale", 1.0)   # plotted unit per stored unit (1e6: m -> um)
+        ax.plot(x * k, w / k, "-", label="Boltzmann density")
+        ax.errorbar(0.5 * (edges[1:] + edges[:-1]) * k, d["observed"] / width / k, d["errors"] / width / k,
+                    fmt="o", ms=3, label="measured (equal-probability bins)")
+        ax.set_xlabel(d.get("xlabel", f"position ({unit})"))
+        ax.set_ylabel(d.get("ylabel", f"density (1/{unit})"))
+        ax.set_title(d.get("title", "position histogram"))
         ax.legend(fontsize=7)
         save(fig, "histogram.png")
     if "dwell" in data:

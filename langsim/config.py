@@ -58,6 +58,8 @@ class Particles:
     #: surface.FixedHeight of [medium] wall_distance, or None
     fixed_height: object = None
     feedback: tuple = None     # per axis, kg/s: cold damping (extra damping without noise)
+    #: surface.WallFriction of a hydrodynamic wall term (position-dependent friction), or None
+    wall_friction: object = None
 
 
 @dataclass(frozen=True)
@@ -187,8 +189,10 @@ def load(source):
     regime = dyn_table.get("regime", choice(*SCHEMES), default="overdamped")
     particles = _particles(Table(errors, "[particles]", top.raw("particles"), "[particles] {key}"),
                            medium, regime, errors)
-    terms = _terms(top.raw("potential"), particles.dimensions, kT, errors)
+    terms = _terms(top.raw("potential"), particles.dimensions, kT, errors, particles)
     dynamics = _dynamics(dyn_table, regime)
+    particles = replace(particles, wall_friction=surface.wall_friction(terms, particles, medium,
+                                                                       dynamics, errors))
     measurement = _measurement_spec.parse(top.raw("measurement"), errors, particles.dimensions,
                                           dynamics.dt, dynamics.steps)
     output = _output(Table(errors, "[output]", top.raw("output"), "[output] {key}"), regime,
@@ -221,6 +225,8 @@ def load(source):
         resolved["medium"].update(wall_distance=medium.wall_distance,
                                   wall_axis=particles.fixed_height.axis)
         resolved["particles"].update(particles.fixed_height.resolved())
+    if particles.wall_friction is not None:
+        resolved["particles"]["bulk_friction"] = particles.wall_friction.bulk
     if measurement is not None:
         resolved["measurement"] = measurement.resolved
     if particles.feedback is not None:
@@ -353,7 +359,7 @@ def _initial(t, count, d):
     return "equilibrium"
 
 
-def _terms(value, d, kT, errors):
+def _terms(value, d, kT, errors, particles):
     if value is None:
         return []
     if isinstance(value, dict):
@@ -368,7 +374,7 @@ def _terms(value, d, kT, errors):
         if kind is None:
             continue
         cls = _pot.TERMS[kind]
-        term = cls.from_table(t, d, kT)
+        term = cls.from_table(t, d, kT).bind(particles, t)
         t.finish()
         terms.append(term)
     return terms

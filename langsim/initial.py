@@ -9,6 +9,8 @@ axis on which no term acts starts at 0. Non-separable potentials are brought to
 equilibrium by a burn-in run of the dynamics (see ``[particles] burn_in``).
 Velocities are drawn from the Maxwell-Boltzmann distribution.
 """
+import math
+
 import numpy as np
 
 from . import potentials as _pot
@@ -34,8 +36,26 @@ def axis_energy(terms, axis, dimensions, grid, time=0.0):
 
 def _axis_range(terms, axis, kT):
     ranges = [r for r in (t.sampling_range(axis, kT) for t in terms) if r is not None]
+    bounded = [r for r in ranges if np.all(np.isfinite(r))]
+    if bounded:
+        lo, hi = min(r[0] for r in bounded), max(r[1] for r in bounded)
+    elif ranges:
+        # only one-sided terms (a wall): the constant force toward it bounds the other side
+        force = sum(t.force[axis] for t in terms if isinstance(t, _pot.ConstantForce))
+        lo, hi = max(r[0] for r in ranges), min(r[1] for r in ranges)
+        reach = _pot.SAMPLING_CUTOFF_KT * kT / abs(force) if force else math.inf
+        if math.isinf(hi) and force < 0:
+            hi = lo + reach
+        elif math.isinf(lo) and force > 0:
+            lo = hi - reach
+        else:
+            raise ConfigError(f"[particles] initial = 'equilibrium': on axis {axis} a wall confines "
+                              "one side only and no constant force (gravity) pushes toward it, so "
+                              "there is no equilibrium; give an initial point or add a force")
     if ranges:
-        return min(r[0] for r in ranges), max(r[1] for r in ranges), True
+        for r in ranges:   # one-sided terms cut the range
+            lo, hi = max(lo, r[0]), min(hi, r[1])
+        return lo, hi, True
     periodic = [t for t in terms if isinstance(t, _pot.Periodic) and t.axis == axis]
     if periodic:
         lo, hi = periodic[0].period_range()

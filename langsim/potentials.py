@@ -12,12 +12,12 @@ a sequence of ``dimensions`` values.
 import ast
 import difflib
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
 from .kernels import forces as _k
-from .validation import Invalid, number, integer, per_axis, text
+from .validation import Invalid, boolean, choice, number, integer, per_axis, text
 
 #: Energy above the minimum (in kT) beyond which the Boltzmann density is
 #: neglected when sampling initial positions: e^-50 ~ 2e-22.
@@ -67,6 +67,11 @@ class Term:
 
     def static(self):
         """The same term frozen at its t = 0 configuration."""
+        return self
+
+    def bind(self, particles, table):
+        """The term completed from the run's ``particles`` (radius, density), once they
+        are validated; problems go to ``table.errors``."""
         return self
 
     def energy_at(self, positions, time=0.0):
@@ -357,6 +362,141 @@ class ConstantForce(Term):
         return not any(self.force[:dimensions])
 
 
+_SIDES = {"above": 1.0, "below": -1.0}
+
+
+@dataclass(frozen=True)
+class Wall(Term):
+    """Steep soft wall at the plane x_axis = position: U = strength exp(-gap/range),
+    gap = side (x_axis - position) - radius, the distance from the bead's surface to the
+    plane (side +1: beads live above the plane, -1: below it). The form of a screened
+    electrostatic repulsion between a charged bead and glass (range = Debye length);
+    the energy stays finite inside the wall. With ``hydrodynamic`` the friction also
+    depends on the gap (Faxen parallel, closed-form perpendicular, see
+    :mod:`langsim.surface`)."""
+
+    strength: float
+    range: float
+    position: float
+    axis: int
+    side: float
+    radius: float
+    hydrodynamic: bool
+    kT: float = field(default=0.0, repr=False)    # for the guard curvature only
+    name = "wall"
+    code = _k.WALL
+
+    @classmethod
+    def from_table(cls, t, d, kT):
+        side = t.get("side", choice(*_SIDES), default="above")
+        return cls(strength=_barrier(t, kT, "strength") or kT,
+                   range=t.get("range", _POS, required=True, units="m") or 1.0,
+                   position=t.get("position", _REAL, default=0.0, units="m"),
+                   axis=t.get("axis", integer(0, d - 1), default=d - 1),
+                   side=_SIDES.get(side, 1.0),
+                   radius=t.get("radius", _NONNEG, units="m"),
+                   hydrodynamic=t.get("hydrodynamic", boolean, default=True),
+                   kT=kT)
+
+    def bind(self, particles, t):
+        """The bead radius from ``[particles] radius`` unless the term gives its own."""
+        if self.radius is not None:
+            return self
+        if particles.radius is None:
+            t.errors.note(f"{t.where('radius')} is missing: expected the bead radius (m), here "
+                          "or as [particles] radius (0 for a wall acting on the centre)")
+            return replace(self, radius=0.0)
+        return replace(self, radius=particles.radius)
+
+    def resolved(self):
+        out = super().resolved()
+        out.pop("kT")
+        out["side"] = "above" if self.side > 0 else "below"
+        return out
+
+    def encode(self, d):
+        row = _row()
+        row[:6] = (self.strength, self.range, self.position, self.axis, self.side, self.radius)
+        return row
+
+    def contact(self):
+        """Coordinate on ``axis`` of the bead's centre at contact (gap 0), m."""
+        return self.position + self.side * self.radius
+
+    def gap_at_energy(self, energy):
+        """The gap (m, negative inside the wall) at which U = ``energy`` J."""
+        return self.range * math.log(self.strength / energy)
+
+    def curvature(self, d):
+        # U'' = U/range^2; for the step guard, taken where U = kT (the region beads
+        # visit), or at contact for a wall weaker than kT
+        out = np.zeros(d)
+        out[self.axis] = min(self.strength, self.kT or self.strength) / self.range**2
+        return out
+
+    def sampling_range(self, axis, kT):
+        if axis != self.axis:
+            return None
+        edge = self.contact() + self.side * self.gap_at_energy(SAMPLING_CUTOFF_KT * kT)
+        return (edge, math.inf) if self.side > 0 else (-math.inf, edge)
+
+    def energy_at(self, positions, time=0.0):
+        x = np.asarray(positions, dtype=float)
+        gap = self.side * (x[..., self.axis] - self.position) - self.radius
+        return self.strength * np.exp(-gap / self.range)
+
+
+@dataclass(frozen=True)
+class Gravity(ConstantForce):
+    """Gravity less buoyancy: U = m_b g x_axis, m_b = (4/3) pi a^3 (rho_p - rho_f), so
+    beads (denser than the fluid, g > 0) are pulled toward smaller x_axis. A constant
+    force (its row is the force) computed from [particles] radius and density (or mass)."""
+
+    acceleration: float = 0.0
+    axis: int = 0
+    fluid_density: object = None
+    buoyant_mass: float = 0.0
+    name = "gravity"
+
+    @classmethod
+    def from_table(cls, t, d, kT):
+        from . import units
+        fluid = t.raw("fluid_density", "water")
+        temperature = kT / units.k_B
+        lo, hi = units.WATER_T_RANGE
+        if fluid == "water" and lo <= temperature <= hi:
+            fluid = units.water_density(temperature)
+        elif fluid == "water":
+            t.bad("fluid_density", f"a number > 0 (kg/m^3): 'water' needs a temperature between "
+                                   f"{lo} and {hi} K, got {temperature:g} K")
+            fluid = None
+        else:
+            try:
+                fluid = _POS(fluid)
+            except Invalid:
+                t.bad("fluid_density", "a number > 0 or the string 'water'", "kg/m^3")
+                fluid = None
+        return cls(force=(0.0,) * d,
+                   acceleration=t.get("acceleration", _REAL, default=units.g_n, units="m/s^2"),
+                   axis=t.get("axis", integer(0, d - 1), default=d - 1), fluid_density=fluid)
+
+    def bind(self, particles, t):
+        """The force from the bead's radius and density (or mass)."""
+        from . import units
+        if particles.radius is None or (particles.density is None and particles.mass is None):
+            t.errors.note(f"{t.where('type')} = 'gravity' needs [particles] radius (m) and density "
+                          "(kg/m^3) or mass (kg)")
+            return self
+        if self.fluid_density is None:
+            return self
+        volume = units.sphere_mass(particles.radius, 1.0)
+        density = particles.density if particles.density is not None else particles.mass / volume
+        mb = units.buoyant_mass(particles.radius, density, self.fluid_density)
+        force = [0.0] * len(self.force)
+        force[self.axis] = -mb * self.acceleration
+        return replace(self, force=tuple(force), buoyant_mass=mb)
+
+
 # ----------------------------------------------------------------- expressions
 
 _FUNCTIONS = ("exp", "log", "sqrt", "sin", "cos", "tan", "sinh", "cosh", "tanh",
@@ -618,7 +758,7 @@ def radial_profile(terms, center, dimensions):
 
 #: Registry: config ``type`` string -> term class.
 TERMS = {cls.name: cls for cls in (Harmonic, DoubleWell, Periodic, GaussianWell,
-                                   ConstantForce, Expression, Function)}
+                                   ConstantForce, Wall, Gravity, Expression, Function)}
 
 
 def builtin_rows(terms, d):

@@ -5,6 +5,11 @@
   held by a trap whose excursions along the wall normal are small; the friction
   becomes per axis, Faxen's parallel value along the wall and Brenner's exact
   perpendicular value along the normal (:mod:`langsim.units`).
+* Position-dependent (a ``wall`` potential term with ``hydrodynamic = true``,
+  :class:`langsim.potentials.Wall`): friction and noise follow the bead's
+  distance from the wall, with the drift kT d(1/gamma)/dz in the overdamped
+  scheme; the run carries a :class:`WallFriction` for the engine's friction
+  stage, which evaluates :func:`langsim.kernels.walls.wall_mobility` per step.
 
 Validation happens here, once; kernels get plain numbers.
 """
@@ -46,6 +51,66 @@ class FixedHeight:
     def resolved(self):
         return {"bulk_friction": self.bulk, "friction_parallel": self.parallel,
                 "friction_perpendicular": self.perpendicular}
+
+
+@dataclass(frozen=True)
+class WallFriction:
+    """What the engine's friction stage needs for position-dependent wall friction.
+
+    Mobilities are ``wall_mobility(h, radius)`` factors of 1/``bulk`` at the
+    centre-to-wall distance h = side (x[axis] - position); along the normal the
+    overdamped drift is side kT/bulk d(factor)/dh (Ito) when ``drift``.
+    """
+
+    axis: int
+    position: float         # m, the wall plane's coordinate on ``axis``
+    side: float             # +1: beads live at x[axis] > position; -1: below it
+    radius: float           # m
+    bulk: float             # kg/s, the friction far from the wall
+    drift: bool = True      # False only to show what the drift term is for (tests)
+
+    def as_tuple(self):
+        return (self.axis, self.position, self.side, self.radius)
+
+
+#: Schemes that can run with position-dependent friction (the Ito drift of the
+#: overdamped rule needs uncorrelated noise between steps; BAOAB's O step at the
+#: current position keeps the velocity Maxwellian without any drift).
+WALL_SCHEMES = ("euler-maruyama", "baoab")
+#: Whether the engine has its friction stage yet (set when it lands).
+FRICTION_STAGE = False
+
+
+def wall_friction(terms, particles, medium, dynamics, errors):
+    """The :class:`WallFriction` of the run's hydrodynamic wall term, or None."""
+    walls = [(i, t) for i, t in enumerate(terms) if t.name == "wall" and t.hydrodynamic]
+    if not walls:
+        return None
+    i, wall = walls[0]
+    where = f"potential[{i}].hydrodynamic"
+    if len(walls) > 1:
+        errors.note(f"potential[{walls[1][0]}].hydrodynamic = true: expected at most one wall "
+                    "term with hydrodynamic friction (the corrections of two walls do not add); "
+                    "set hydrodynamic = false on the others")
+    if medium.wall_distance is not None:
+        errors.note(f"{where} = true and [medium] wall_distance are both given: expected one "
+                    "(friction from the position, or at a fixed height)")
+    if particles.radius is None or not wall.radius > 0:
+        errors.note(f"{where} = true: the wall friction needs the bead radius > 0 (m), "
+                    "[particles] radius or the term's radius")
+        return None
+    if len(set(particles.friction)) > 1:
+        errors.note(f"{where} = true: expected a single [particles] friction (the bulk value the "
+                    f"wall correction multiplies), got {list(particles.friction)!r} (kg/s)")
+    if dynamics.scheme not in WALL_SCHEMES:
+        errors.note(f"{where} = true: expected [dynamics] scheme one of "
+                    f"{', '.join(repr(s) for s in WALL_SCHEMES)} with position-dependent friction, "
+                    f"got {dynamics.scheme!r}")
+    if not FRICTION_STAGE:
+        errors.note(f"{where} = true: position-dependent friction is not available yet (it "
+                    "needs the engine's friction stage); expected hydrodynamic = false (bulk "
+                    "friction) or [medium] wall_distance (a fixed height)")
+    return WallFriction(wall.axis, wall.position, wall.side, wall.radius, particles.friction[0])
 
 
 def fixed_height(t, medium, radius, friction, given, dimensions):

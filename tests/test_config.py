@@ -21,6 +21,9 @@ BASE = {
         {"type": "gaussian-well", "depth_kT": 8.0, "waist": 1e-6},
         {"type": "constant-force", "force": [0.0, 1e-15]},
         {"type": "expression", "energy": "k*x**2", "parameters": {"k": 1e-7}},
+        {"type": "wall", "strength_kT": 100.0, "range": 2e-8, "position": -1e-6, "axis": 1,
+         "side": "above", "radius": 0.5e-6, "hydrodynamic": False},
+        {"type": "gravity", "acceleration": 9.80665, "axis": 1, "fluid_density": "water"},
     ],
     "dynamics": {"regime": "overdamped", "scheme": "euler-maruyama", "dt": 1e-5, "steps": 100,
                  "allow_unstable": False},
@@ -69,6 +72,16 @@ INVALID = [
     (("potential", 5, "parameters"), {"k": "big"}, "a finite number"),
     (("potential", 5, "parameters"), {"x": 1.0}, "a parameter name"),
     (("potential", 0, "type"), "harmonik", "did you mean 'harmonic'"),
+    (("potential", 6, "strength_kT"), -1.0, "a number > 0 (kT)"),
+    (("potential", 6, "range"), 0.0, "a number > 0 (m)"),
+    (("potential", 6, "position"), "glass", "a finite number (m)"),
+    (("potential", 6, "axis"), 2, "an integer >= 0 and <= 1"),
+    (("potential", 6, "side"), "up", "one of 'above', 'below'"),
+    (("potential", 6, "radius"), -1e-6, "a number >= 0 (m)"),
+    (("potential", 6, "hydrodynamic"), "yes", "true or false"),
+    (("potential", 7, "acceleration"), "down", "a finite number (m/s^2)"),
+    (("potential", 7, "axis"), 5, "an integer >= 0 and <= 1"),
+    (("potential", 7, "fluid_density"), -3.0, "a number > 0 or the string 'water' (kg/m^3)"),
     (("dynamics", "regime"), "overdamp", "did you mean 'overdamped'"),
     (("dynamics", "scheme"), "baoab", "a scheme of the underdamped regime"),
     (("dynamics", "dt"), 0.0, "a number > 0 (s)"),
@@ -182,6 +195,33 @@ def test_wall_distance_needs_a_radius_and_a_single_bulk_friction():
     cfg["medium"]["wall_axis"] = 0
     with pytest.raises(ConfigError, match="wall_axis = 0 without wall_distance"):
         config.load(cfg)
+
+
+def test_gravity_and_wall_take_the_bead_from_particles():
+    cfg = copy.deepcopy(BASE)
+    del cfg["potential"][6]["radius"]
+    spec = config.load(cfg)
+    wall, gravity = spec.resolved["potential"][6:8]
+    assert wall["radius"] == 0.5e-6 and wall["side"] == "above"
+    # m_b = (4/3) pi a^3 (rho_p - rho_water(295.15 K)), Kell 1975 density
+    from langsim import units
+    mb = 4 / 3 * np.pi * 0.5e-6**3 * (2200.0 - units.water_density(295.15))
+    assert gravity["buoyant_mass"] == pytest.approx(mb, rel=1e-12)
+    assert gravity["force"] == pytest.approx([0.0, -mb * 9.80665], rel=1e-12)
+    del cfg["particles"]["density"]
+    with pytest.raises(ConfigError, match=r"potential\[7\].type = 'gravity' needs \[particles\] radius"):
+        config.load(cfg)
+
+
+def test_hydrodynamic_wall_needs_the_friction_stage():
+    cfg = copy.deepcopy(BASE)
+    cfg["potential"][6]["hydrodynamic"] = True
+    cfg["dynamics"]["scheme"] = "leimkuhler-matthews"
+    with pytest.raises(ConfigError) as info:
+        config.load(cfg)
+    text = str(info.value)
+    assert "potential[6].hydrodynamic = true: expected [dynamics] scheme one of" in text
+    assert "position-dependent friction is not available yet" in text
 
 
 def test_per_particle_positions_from_an_array():

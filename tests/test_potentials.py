@@ -24,6 +24,9 @@ TERMS = [
     P.Periodic(3 * kT, 0.8e-6, 2e-15, 2, (0.0, 0.0, 1e-7)),
     P.GaussianWell(10 * kT, (0.5e-6, 0.7e-6, 1.5e-6), (1e-7, 0.0, -1e-7)),
     P.ConstantForce((1e-14, -2e-14, 3e-14)),
+    P.Wall(50 * kT, 0.3e-6, -1.0e-6, 2, 1.0, 0.2e-6, False, kT),
+    P.Wall(20 * kT, 0.5e-6, 0.8e-6, 0, -1.0, 0.1e-6, False, kT),
+    P.Gravity((0.0, 0.0, -2e-15), 9.80665, 2, 997.0, 2e-15 / 9.80665),
 ]
 
 

@@ -189,3 +189,134 @@ def test_trapped_bead_corner_frequency_uses_the_wall_friction():
     wrong = langsim.check(type(traj)(traj.time, traj.positions, None, bulk, traj.status))
     failed = {r.quantity for r in wrong.rows if r.status == "fail"}
     assert {"corner frequency x", "corner frequency y", "corner frequency z"} <= failed
+
+
+# ------------------------------------------------------------- sedimentation
+
+# Silica-like beads, a = 0.5 um, 2000 kg/m^3 in water at 25 C: l_g = kT/(m_b g) = 799.3 nm
+# (check-values.md section 18 table, with rho_f = 997.05); an electrostatic-like wall of
+# 100 kT at contact decaying over 50 nm keeps them off the glass.
+T_25 = 298.15
+
+
+def _sediment(seed=21, count=200, duration=20.0, dt=1e-4, **wall):
+    return {"seed": seed,
+            "particles": {"count": count, "dimensions": 1, "radius": 0.5e-6, "density": 2000.0},
+            "medium": {"temperature": T_25, "viscosity": 0.8900e-3},
+            "potential": [{"type": "wall", "strength_kT": 100.0, "range": 50e-9, **wall},
+                          {"type": "gravity", "fluid_density": 997.05}],
+            "dynamics": {"dt": dt, "duration": duration}, "output": {"every": 100}}
+
+
+@pytest.fixture(scope="module")
+def sediment_bulk():
+    import langsim
+    return langsim.run(_sediment(hydrodynamic=False), progress=False)
+
+
+def test_sedimentation_length_from_the_config():
+    from langsim import config
+    spec = config.load(_sediment(hydrodynamic=False))
+    force = -spec.resolved["potential"][1]["force"][0]
+    # check-values.md section 18: l_g = 799.317858 nm for this bead at 298.15 K
+    assert units.k_B * T_25 / force == pytest.approx(799.317858e-9, rel=1e-8)
+
+
+def test_decay_length_gives_boltzmann_constant(sediment_bulk):
+    """Perrin's other method (check-values.md section 11): above the wall's range the
+    heights are exponential with l = kT/(m_b g), so k_B = m_b g l/T. The estimate is
+    within 4.5 replica standard errors of the SI value (exact since 2019); heights
+    read with a 20 % wrong scale (a mis-calibrated focus drive) fail."""
+    from langsim.analysis.near_wall import decay_length
+    traj = sediment_bulk
+    force = -traj.config["potential"][1]["force"][0]
+    wall = traj.config["potential"][0]
+    cut = wall["radius"] + wall["range"] * math.log(wall["strength"] / (1e-4 * units.k_B * T_25))
+    z = np.asarray(traj.positions[20:, :, 0])    # frame 0 is already an equilibrium sample
+    ell, err = decay_length(z, cut)
+    k_est, k_err = force * ell / T_25, force * err / T_25
+    assert k_err / k_est < 0.05
+    assert abs(k_est - units.k_B) < 4.5 * k_err
+    ell2, err2 = decay_length(1.2 * z, 1.2 * cut)
+    assert abs(force * ell2 / T_25 - units.k_B) > 4.5 * force * err2 / T_25
+
+
+def test_check_of_a_sedimentation_run(sediment_bulk):
+    """``langsim check``: height histogram against exp(-U/kT) of wall and gravity
+    (Boltzmann), decay length against kT/(m_b g), short-time D against the bulk value;
+    a config claiming 30 % more buoyant weight fails the height rows."""
+    import copy
+
+    import langsim
+    traj = sediment_bulk
+    report = langsim.check(traj)
+    rows = {r.key: r for r in report.rows}
+    assert report.passed, report.format_table()
+    assert rows["height_histogram.x"].status == "pass"
+    assert rows["decay_length.x"].status == "pass"
+    assert any(k.startswith("diffusion_by_height") and r.status == "pass" for k, r in rows.items())
+    heavy = copy.deepcopy(traj.config)
+    heavy["potential"][1]["force"] = [1.3 * heavy["potential"][1]["force"][0]]
+    wrong = langsim.check(type(traj)(traj.time, traj.positions, None, heavy, traj.status))
+    failed = {r.key for r in wrong.rows if r.status == "fail"}
+    assert {"height_histogram.x", "decay_length.x"} <= failed
+
+
+# ------------------------------------------------- calibration of the error bars
+
+def _renewal_heights(rng, shape, keep):
+    """Exponential(1) heights, each frame kept from the previous one with probability
+    ``keep`` (a Markov chain with the exponential as its stationary law; integrated
+    autocorrelation time (1 + keep)/(1 - keep) frames)."""
+    fresh = rng.exponential(size=shape)
+    stay = rng.random(shape) < keep
+    z = fresh.copy()
+    for n in range(1, shape[-2]):
+        z[..., n, :] = np.where(stay[..., n, :], z[..., n - 1, :], fresh[..., n, :])
+    return z
+
+
+def test_decay_length_error_is_calibrated():
+    """z-scores of the decay length over 300 synthetic experiments (correlated exponential
+    heights, known l = 1) have mean 0 and standard deviation 1 within 4.5 of their standard
+    errors (1/sqrt(300) and 1/sqrt(600)); with blocks shorter than the correlation time the
+    errors are too small and the same test fails."""
+    from langsim.analysis.near_wall import decay_length
+    rng = np.random.Generator(np.random.PCG64(71))
+    z = _renewal_heights(rng, (300, 600, 30), keep=0.8)
+    cut = 0.5
+    good, naive = [], []
+    for e in z:
+        ell, err = decay_length(e, cut)
+        good.append((ell - 1.0) / err)
+        ell, err = decay_length(e, cut, n_blocks=300)
+        naive.append((ell - 1.0) / err)
+    good, naive = np.array(good), np.array(naive)
+    assert abs(good.mean()) < 4.5 / math.sqrt(300)
+    assert abs(good.std(ddof=1) - 1.0) < 4.5 / math.sqrt(600)
+    assert naive.std(ddof=1) - 1.0 > 4.5 / math.sqrt(600)
+
+
+def test_increments_by_height_error_is_calibrated():
+    """Squared increments whose variance depends on the starting height, 2 D(h) tau with
+    D = 1 + h: the difference from the prediction, in units of its error, is standard
+    normal over 200 experiments x 3 bins; predicting with D = 1.03 (1 + h) is detected."""
+    from langsim.analysis.near_wall import increments_by_height
+    rng = np.random.Generator(np.random.PCG64(72))
+    tau = 0.1
+    edges = np.array([0.0, 0.4, 1.1, 20.0])
+    zs, biased = [], []
+    for _ in range(200):
+        h = _renewal_heights(rng, (400, 25), keep=0.7)
+        dx = rng.standard_normal((399, 25)) * np.sqrt(2 * (1 + h[:-1]) * tau)
+        x = np.concatenate([np.zeros((1, 25)), np.cumsum(dx, axis=0)])
+        pos = np.stack([x, h], axis=-1)
+        r = increments_by_height(pos, 1, edges, lambda h0, ax: 2 * (1 + h0) * tau, n_blocks=4)
+        zs.extend(r["difference"][:, 0] / r["difference_err"][:, 0])
+        r = increments_by_height(pos, 1, edges, lambda h0, ax: 2.06 * (1 + h0) * tau, n_blocks=4)
+        biased.extend(r["difference"][:, 0] / r["difference_err"][:, 0])
+    zs, biased = np.array(zs), np.array(biased)
+    n = zs.size
+    assert abs(zs.mean()) < 4.5 / math.sqrt(n)
+    assert abs(zs.std(ddof=1) - 1.0) < 4.5 / math.sqrt(2 * n)
+    assert abs(biased.mean()) > 4.5 / math.sqrt(n)

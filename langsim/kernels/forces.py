@@ -16,7 +16,9 @@ code       name slots
                 transverse stiffness[6:9]
 2          periodic: barrier[0], period[1], tilt[2], axis[3], center[4:7]
 3          gaussian-well: depth[0], waist[1:4], center[4:7]
-4          constant-force: force[0:3]
+4          constant-force: force[0:3] (also gravity, whose row is its force)
+5          wall: strength[0], range[1], position[2], axis[3], side[4] (+1 or
+                -1), radius[5]
 ========== ==== ============================================================
 """
 import math
@@ -29,6 +31,7 @@ DOUBLE_WELL = 1
 PERIODIC = 2
 GAUSSIAN_WELL = 3
 CONSTANT_FORCE = 4
+WALL = 5
 #: Number of float64 slots in one parameter row.
 N_SLOTS = 16
 
@@ -123,6 +126,19 @@ def builtin_forces(codes, params, X, t, F, energy, with_energy):
                     F[i, a] += fa
                     if with_energy:
                         energy[i] -= fa * X[i, a]
+        elif code == WALL:
+            # U = strength exp(-gap/range), gap = side (x_axis - position) - radius
+            strength = row[0]
+            decay = row[1]
+            position = row[2]
+            ax = int(row[3])
+            side = row[4]
+            radius = row[5]
+            for i in range(n):
+                u = strength * math.exp(-(side * (X[i, ax] - position) - radius) / decay)
+                F[i, ax] += side * u / decay
+                if with_energy:
+                    energy[i] += u
 
 
 @njit(cache=True)
