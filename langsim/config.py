@@ -17,17 +17,15 @@ import numpy as np
 from . import gas as _gas
 from . import oscillators as _osc
 from . import potentials as _pot
+from . import schemes as _registry
 from . import seeding, surface, units
 from .measurement import placement as _placement
 from .measurement import spec as _measurement_spec
 from .validation import (ConfigError, Errors, Invalid, Table, boolean, choice, integer, number,
                          per_axis, text)
 
-#: Schemes by regime. The first is the regime's default.
-SCHEMES = {
-    "overdamped": ("euler-maruyama", "leimkuhler-matthews"),
-    "underdamped": ("baoab",),
-}
+#: Schemes by regime (from the registry, :mod:`langsim.schemes`). The first is the regime's default.
+SCHEMES = {regime: _registry.names(regime) for regime in ("overdamped", "underdamped")}
 #: Stability limits: refused at or above, warned above the accuracy bound.
 OVERDAMPED_LIMIT = 2.0      # kappa dt / gamma: Euler-Maruyama diverges beyond
 OVERDAMPED_WARN = 0.2       # kappa dt / gamma: EM variance 11 % too high
@@ -112,6 +110,8 @@ class RunSpec:
     measurement: object = None     # langsim.measurement.spec.Measurement, or None
     #: units of the recorded coordinates (an oscillator's own: rad, C, ...)
     units: dict = field(default_factory=lambda: _osc.units_of(None))
+    #: Spawn key of the run's SeedSequence (empty for a plain integer seed).
+    spawn_key: tuple = ()
 
     @property
     def kT(self):
@@ -179,7 +179,12 @@ def load(source):
     errors = Errors(path)
     mapping, oscillator = _osc.translate(mapping, errors)
     top = Table(errors, "", mapping, key_format="{key}")
+    if isinstance(mapping.get("seed"), np.random.SeedSequence):
+        seed_value, key = seeding.split_seed(mapping["seed"])
+        mapping["seed"] = seed_value
+        mapping["spawn_key"] = list(key) + list(mapping.get("spawn_key", []))
     seed = top.get("seed", integer(0, seeding.MAX_SEED))
+    spawn_key = tuple(top.get("spawn_key", _spawn_key, default=[]))
     if seed is None:
         seed = seeding.fresh_seed()
 
@@ -200,7 +205,8 @@ def load(source):
     top.finish()
     errors.raise_if_any()
 
-    provisional = RunSpec(seed, particles, medium, tuple(terms), dynamics, output, {})
+    provisional = RunSpec(seed, particles, medium, tuple(terms), dynamics, output, {},
+                          measurement=measurement, spawn_key=spawn_key)
     particles = replace(particles, burn_in=_burn_in(provisional))
     resolved = {
         "seed": seed,
@@ -237,12 +243,22 @@ def load(source):
             resolved["particles"]["knudsen"] = medium.gas.knudsen(particles.radius)
     if oscillator is not None:
         resolved["oscillator"] = oscillator
-    spec = RunSpec(seed, particles, medium, tuple(terms), dynamics, output, resolved, measurement,
-                   _osc.units_of(oscillator))
+    if spawn_key:
+        resolved["spawn_key"] = list(spawn_key)
+    spec = RunSpec(seed, particles, medium, tuple(terms), dynamics, output, resolved,
+                   measurement=measurement, units=_osc.units_of(oscillator), spawn_key=spawn_key)
     _guard_step(spec, path)
     surface.fixed_height_warnings(spec, f"{path}: " if path else "")
     _osc.quantum_warnings(spec, path)
     return spec
+
+
+def _spawn_key(value):
+    if not isinstance(value, (list, tuple)) or not all(
+            isinstance(k, (int, np.integer)) and not isinstance(k, bool) and 0 <= k < 2**63
+            for k in value):
+        raise Invalid("a list of integers >= 0 (the spawn key of a numpy SeedSequence)")
+    return [int(k) for k in value]
 
 
 def _medium(t):

@@ -1,18 +1,25 @@
 """Trajectories and the sinks the engine writes them to.
 
-The engine hands frames to a sink and never touches storage itself. A sink has
+The engine hands frames to a sink and never touches storage itself. Frames
+come in groups: the root group ("": ``time``, ``positions``, ``velocities``)
+and optional others (``measured``), each with its own time base. A sink has
 four calls:
 
-``start(spec) -> ResumeState | None``
-    prepare storage; a state to continue from when resuming.
-``write(frame0, time, positions, velocities)``
-    frames ``frame0 .. frame0 + len(time) - 1``; velocities may be None.
-``checkpoint(step, positions, velocities)``
-    everything an exact resume needs (the counter-based noise needs only the step).
-``finish(status) -> Trajectory``
+``start(spec, layout) -> ResumeState | None``
+    prepare storage for ``layout`` = {group: (n_frames, [(name, frame shape,
+    units), ...])}; a state to continue from when resuming.
+``write(group, frame0, time, arrays)``
+    frames ``frame0 .. frame0 + len(time) - 1`` of ``group``; ``arrays`` maps
+    dataset names to arrays (frames, ...).
+``checkpoint(step, arrays)``
+    everything an exact resume needs: named state arrays (positions,
+    velocities, recorder accumulators); the counter-based noise needs only
+    the step.
+``finish(status, run_stats=None) -> Trajectory``
 
 :class:`MemorySink` keeps everything in arrays. Only this module imports h5py.
 """
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -20,26 +27,59 @@ import numpy as np
 
 @dataclass
 class ResumeState:
-    """Where an interrupted run continues: after ``step``, with ``n_frames`` written."""
+    """Where an interrupted run continues: after ``step``, with ``n_frames[group]`` written."""
 
     step: int
-    n_frames: int
-    positions: np.ndarray
-    velocities: object
+    n_frames: dict
+    arrays: dict
+
+
+#: Reasons a run ends.
+REASONS = ("complete", "interrupted", "blow-up", "stopped")
 
 
 @dataclass
 class Status:
-    """How a run ended. ``complete`` is False when it stopped early."""
+    """How a run ended.
 
-    complete: bool
+    ``reason`` is one of ``REASONS``: "complete"; "interrupted" (SIGINT or
+    SIGTERM, resumable); "blow-up" (a non-finite position: ``step``, ``particle``
+    and ``time`` say where; the frames before it are kept); "stopped" (a stop
+    condition ended it).
+    """
+
+    reason: str = "complete"
     message: str = "complete"
-    step: int = -1
-    particle: int = -1
-    time: float = float("nan")
+    step: int = None
+    particle: int = None
+    time: float = None
+
+    def __post_init__(self):
+        if self.reason not in REASONS:
+            raise ValueError(f"status reason = {self.reason!r}: expected one of {REASONS}")
+
+    @property
+    def complete(self):
+        return self.reason == "complete"
 
     def to_dict(self):
-        return dict(self.__dict__)
+        return {"complete": self.complete, "reason": self.reason, "message": self.message,
+                "step": self.step, "particle": self.particle,
+                "time": None if self.time is None or not math.isfinite(self.time) else self.time}
+
+    @classmethod
+    def from_dict(cls, d):
+        """From :meth:`to_dict`, or the status of a langsim 0.1 file (no ``reason``)."""
+        reason = d.get("reason")
+        if reason not in REASONS:
+            particle = d.get("particle")
+            reason = ("complete" if d.get("complete") else
+                      "blow-up" if isinstance(particle, int) and particle >= 0 else "interrupted")
+        step, particle = d.get("step"), d.get("particle")
+        return cls(reason, str(d.get("message", reason)),
+                   step if isinstance(step, int) and step >= 0 else None,
+                   particle if isinstance(particle, int) and particle >= 0 else None,
+                   d.get("time") if isinstance(d.get("time"), (int, float)) else None)
 
 
 class Trajectory:
@@ -48,28 +88,50 @@ class Trajectory:
     Attributes
     ----------
     time : ndarray (n_frames,), s
-    positions : ndarray or h5py Dataset (n_frames, n_particles, dimensions), m
+    positions : ndarray or FrameView (n_frames, n_particles, dimensions), m
+        (rad or C for oscillators: see ``units``)
     velocities : same shape, m/s, or None
         Full-step velocities (after BAOAB's last B), when recorded.
     config : dict
         The resolved configuration (SI values, defaults filled in).
-    units : dict
-        Units of ``positions`` and ``velocities`` ("m", "m/s"; an oscillator's
-        own, e.g. "rad", "rad/s" or "C", "A").
     status : Status
+    groups : dict
+        Other groups of datasets with their own ``time``, e.g.
+        ``groups["measured"]["positions"]``.
+    units : dict
+        Units of each dataset by path ("positions", "velocities", "measured/positions", ...):
+        "m", "m/s", or an oscillator's own ("rad", "rad/s"; "C", "A").
     path : str or None
         The backing file, None for an in-memory trajectory.
+    file_state : str
+        "complete", "interrupted", "failed" or "running" (files; memory: from the status).
+    metadata : dict
+        Root attributes of the file (format, version, creator, creation time,
+        compression); empty in memory.
+    run_stats : RunStats or None
+        What the session that produced it cost (None when loaded from a file).
     """
 
-    def __init__(self, time, positions, velocities, config, status, path=None, file=None, units=None):
-        self.units = dict(units or {"positions": UNITS["positions"], "velocities": UNITS["velocities"]})
+    def __init__(self, time, positions, velocities, config, status, path=None, file=None,
+                 groups=None, units=None, file_state=None, metadata=None, run_stats=None):
         self.time = time
         self.positions = positions
         self.velocities = velocities
         self.config = config
         self.status = status
+        self.groups = groups or {}
+        self.units = units or {}
         self.path = path
+        self.file_state = file_state or ("complete" if status.complete else
+                                         "failed" if status.reason == "blow-up" else "interrupted")
+        self.metadata = metadata or {}
+        self.run_stats = run_stats
         self._file = file
+
+    @property
+    def measured(self):
+        """The ``measured`` group (what an instrument reports), or None."""
+        return self.groups.get("measured")
 
     @property
     def n_frames(self):
@@ -89,7 +151,7 @@ class Trajectory:
 
     @property
     def frame_interval(self):
-        """Time between frames, s."""
+        """Time between frames of the root group, s."""
         return self.config["dynamics"]["dt"] * self.config["output"]["every"]
 
     def close(self):
@@ -110,36 +172,44 @@ class Trajectory:
                 f"{self.dimensions}D{where}; {state}>")
 
 
+def _dtype(spec):
+    return np.float32 if spec.output.precision == "single" else np.float64
+
+
 class MemorySink:
     """Keeps the trajectory in arrays of the configured precision."""
 
-    def start(self, spec):
+    def start(self, spec, layout):
         self.spec = spec
-        p = spec.particles
-        dtype = np.float32 if spec.output.precision == "single" else np.float64
-        shape = (spec.n_frames, p.count, p.dimensions)
-        self.time = spec.dynamics.dt * spec.output.every * np.arange(spec.n_frames)
-        self.positions = np.empty(shape, dtype=dtype)
-        self.velocities = np.empty(shape, dtype=dtype) if spec.output.velocities else None
-        self.n_written = 0
+        dtype = _dtype(spec)
+        self.groups, self.n_written, self.units = {}, {}, {}
+        for group, (n_frames, datasets) in layout.items():
+            arrays = {"time": np.empty(n_frames)}
+            for name, shape, units in datasets:
+                arrays[name] = np.empty((n_frames,) + tuple(shape), dtype=dtype)
+                self.units[f"{group}/{name}" if group else name] = units
+            self.groups[group] = arrays
+            self.n_written[group] = 0
         return None
 
-    def write(self, frame0, time, positions, velocities):
+    def write(self, group, frame0, time, arrays):
+        g = self.groups[group]
         k = len(time)
-        self.time[frame0:frame0 + k] = time
-        self.positions[frame0:frame0 + k] = positions
-        if self.velocities is not None:
-            self.velocities[frame0:frame0 + k] = velocities
-        self.n_written = frame0 + k
+        g["time"][frame0:frame0 + k] = time
+        for name, data in arrays.items():
+            g[name][frame0:frame0 + k] = data
+        self.n_written[group] = frame0 + k
 
-    def checkpoint(self, step, positions, velocities):
+    def checkpoint(self, step, arrays):
         """Nothing to do: memory does not survive the process."""
 
-    def finish(self, status):
-        n = self.n_written
-        vel = None if self.velocities is None else self.velocities[:n]
-        return Trajectory(self.time[:n], self.positions[:n], vel, self.spec.resolved, status,
-                          units=self.spec.units)
+    def finish(self, status, run_stats=None):
+        trimmed = {g: {name: a[:self.n_written[g]] for name, a in arrays.items()}
+                   for g, arrays in self.groups.items()}
+        root = trimmed.pop("")
+        return Trajectory(root["time"], root["positions"], root.get("velocities"),
+                          self.spec.resolved, status, groups=trimmed, units=self.units,
+                          run_stats=run_stats)
 
 
 # --------------------------------------------------------------------- HDF5

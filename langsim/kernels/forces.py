@@ -147,3 +147,9 @@ def no_extra(x, t, force, p):
     for a in range(x.shape[0]):
         force[a] = 0.0
     return 0.0
+
+
+@njit(cache=True)
+def no_coordinate(x, p):
+    """Stop coordinate of runs without a user coordinate (never called)."""
+    return 0.0

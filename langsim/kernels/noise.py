@@ -88,8 +88,13 @@ _S3, _S5, _S7, _S9, _S11C, _S13, _S15, _S17 = (
 _C2, _C4, _C6, _C8, _C10, _C12, _C14, _C16, _C18 = (
     (-1) ** j / math.factorial(2 * j) for j in range(1, 10))
 
-#: Counter word 3 of the dynamics noise. Other streams are reserved.
+#: Counter word 3 of the dynamics noise is ``STREAM_DYNAMICS + BRANCH_STRIDE * branch``
+#: (branch 0 for a plain run: the bits of langsim 0.1). Counter word 2 is the
+#: component, below 2**32; the Brownian-bridge test draws its uniforms with
+#: word 2 = ``BRIDGE_COMPONENT``, so they never coincide with a dynamics variate.
 STREAM_DYNAMICS = 0
+BRANCH_STRIDE = 1 << 8
+BRIDGE_COMPONENT = np.uint64(1 << 40)
 #: Below this many particles a tile's noise is vectorised over steps.
 SMALL_TILE = 4
 
@@ -227,10 +232,14 @@ def normals4(k0, k1, c0, c1, c2, c3):
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
-def fill_tile(k0, k1, p0, n, n_comp, step0, nb, buf):
+def fill_tile(k0, k1, ids, p0, n, n_comp, step0, nb, buf, stream):
     """Noise of steps step0 .. step0+nb-1 for particles p0 .. p0+n-1.
 
-    ``buf[s, i, c]`` is the variate of (particle p0+i, step step0+s, component c).
+    ``buf[s, i, c]`` is the variate of (particle ``ids[p0+i]``, step step0+s,
+    component c) in the given ``stream`` (counter word 3). ``ids`` (uint64)
+    are the particles' noise identities: ``arange`` for a plain run, walker
+    ids for a rare-event driver, so that a particle's noise does not depend on
+    where it sits in a batch.
 
     The four variates of one Philox block are made for all ``n`` particles in
     one branch-free loop (which LLVM vectorises), into a scratch row per lane,
@@ -241,8 +250,6 @@ def fill_tile(k0, k1, p0, n, n_comp, step0, nb, buf):
     Not inlined: it keeps its own ``error_model="numpy"`` (no zero-division
     branch in the log), whatever the caller's options.
     """
-    stream = np.uint64(STREAM_DYNAMICS)
-    pu = np.uint64(p0)
     q_first = step0 >> 2
     q_end = (step0 + nb + 3) >> 2
     if n < SMALL_TILE:
@@ -253,7 +260,7 @@ def fill_tile(k0, k1, p0, n, n_comp, step0, nb, buf):
         for c in range(n_comp):
             cu = np.uint64(c)
             for i in range(n):
-                pi = pu + np.uint64(i)
+                pi = ids[p0 + i]
                 for jq in range(n_q):
                     z0, z1, z2, z3 = normals4(k0, k1, np.uint64(q_first + jq), pi, cu, stream)
                     blocks[jq, 0] = z0
@@ -269,7 +276,7 @@ def fill_tile(k0, k1, p0, n, n_comp, step0, nb, buf):
         for q in range(q_first, q_end):
             qu = np.uint64(q)
             for i in range(n):
-                z0, z1, z2, z3 = normals4(k0, k1, qu, pu + np.uint64(i), cu, stream)
+                z0, z1, z2, z3 = normals4(k0, k1, qu, ids[p0 + i], cu, stream)
                 tmp[0, i] = z0
                 tmp[1, i] = z1
                 tmp[2, i] = z2
@@ -282,27 +289,31 @@ def fill_tile(k0, k1, p0, n, n_comp, step0, nb, buf):
 
 
 @njit(cache=True)
-def _tile(k0, k1, p0, n, n_comp, step0, nb):
-    buf = np.empty((nb, n, n_comp))
-    fill_tile(k0, k1, p0, n, n_comp, step0, nb, buf)
+def _tile(k0, k1, ids, n_comp, step0, nb, stream):
+    buf = np.empty((nb, ids.shape[0], n_comp))
+    fill_tile(k0, k1, ids, 0, ids.shape[0], n_comp, step0, nb, buf, stream)
     return buf
 
 
-def normals(key, particle, component, step0, n):
-    """Python helper: the ``n`` dynamics variates of one particle component.
+def normals(key, particle, component, step0, n, stream=0):
+    """Python helper: the ``n`` variates of one particle component (dynamics stream by default).
 
     Parameters
     ----------
     key : tuple of two int
         Philox key words (uint64).
     particle, component, step0, n : int
+    stream : int, default 0
+        Counter word 3 (see :data:`STREAM_DYNAMICS`).
 
     Returns
     -------
     ndarray of float64, shape (n,)
         Variates of steps ``step0 .. step0 + n - 1``.
     """
-    buf = _tile(np.uint64(key[0]), np.uint64(key[1]), particle, 1, component + 1, step0, n)
+    ids = np.array([particle], dtype=np.uint64)
+    buf = _tile(np.uint64(key[0]), np.uint64(key[1]), ids, component + 1, step0, n,
+                np.uint64(stream))
     return buf[:, 0, component].copy()
 
 

@@ -1,21 +1,43 @@
-"""Stepping schemes: one compiled call advances every particle by many steps.
+"""The tile loop: one compiled kernel advances a block of particles by many steps.
 
-The engine owns the loop over chunks, time, recording and sinks; a kernel here
-only advances the state. Particles are processed in tiles (``prange`` over
-tiles); within a tile the noise of a block of steps is generated into a small
-buffer first, then the steps are applied to the whole tile, so every inner
-loop runs over particles.
+Every scheme, recorder and stop condition runs in the same loop; they are
+stages given as data (the engine builds the arrays, :mod:`langsim.schemes`
+holds what each scheme means):
 
-Underdamped schemes are splittings given as data: a sequence of letters
-A (drift, x += h v), B (kick, v += h F/m) and O (exact Ornstein-Uhlenbeck
-velocity update) with their fractions of the step; "BAOAB" is
-B 1/2, A 1/2, O 1, A 1/2, B 1/2 [1]. Overdamped schemes are Euler-Maruyama
-and the Leimkuhler-Matthews scheme, which averages the noise of consecutive
-steps [1, 2].
+* **scheme step** (``scheme``, ``coef``, ``letters``):
+  ``RULE``, overdamped x <- x + (dt/gamma) F + amp (xi_n + w1 xi_{n+1}) with
+  (w1 = 0: Euler-Maruyama; w1 = 1 and amp halved: Leimkuhler-Matthews [1, 2]);
+  ``SPLITTING``, underdamped letters A (x += h v), B (v += (h/m) F) and O
+  (v <- c v + a xi, exact Ornstein-Uhlenbeck) with per-letter, per-axis
+  coefficients, e.g. BAOAB [1]; ``EXACT_OD`` / ``EXACT_UD``, the exact
+  transition of the linear (Ornstein-Uhlenbeck) process,
+  z <- M z + g(t) + L xi with g(t) = a + b t + sum_o p_o sin(w_o t + phi_o)
+  + q_o cos(w_o t + phi_o), per axis.
+* **recorders** (``rec_int``, ``rec_w``, ``rec_acc``, ``rec_out``): frame k of
+  recorder r has taps at step counts offset + k period + i spacing,
+  i < n_taps; mode ``SUM`` keeps sum_i w_i x(tap i) (a snapshot is one tap
+  of weight 1, an exposure average the trapezoid weights over every step of
+  the window), mode ``SEQUENCE`` keeps every tap (samples along the path).
+  Partial frames live in ``rec_acc``, which persists across calls (and
+  checkpoints); completed frames go to ``rec_out``.
+* **stop condition** (``stop_int``, ``stop_real``): a particle stops, keeping
+  its state, when its coordinate (an axis, the distance from a centre, or a
+  user coordinate) reaches ``below`` or ``above``; optionally the
+  Brownian-bridge test also stops it when the path may have crossed between
+  two steps.
+* **status per particle**: ``RUNNING``, ``BELOW``, ``ABOVE`` or ``NONFINITE``
+  with the step count at which it changed in ``event_step``. Stopped and
+  failed particles no longer move; the other particles of their tile run on.
 
-Status of a tile: ``status[tile] = (0, -1, -1)`` when it finished, or
-``(1, particle, step)`` for the first non-finite position (the step after which
-it appeared); that tile stops there.
+Particles are processed in tiles of ``TILE``: the noise of a block of
+``BLOCK`` steps is generated for the whole tile into a small buffer, then the
+steps are applied element by element over the tile, so that the inner loops
+vectorise. Stopped particles are masked with exact arithmetic (x + 0 * dx,
+or the blend 1 * new + 0 * old), so a running particle's numbers are the same
+bits whether or not its neighbours stopped.
+
+The kernel is serial and releases the GIL: the engine runs blocks of tiles in
+threads, and small batches call it directly, with no thread pool.
 
 References
 ----------
@@ -28,22 +50,48 @@ References
 import math
 
 import numpy as np
-from numba import njit, prange
+from numba import njit
 
-from .forces import builtin_forces, no_extra
-from .noise import fill_tile
+from .forces import builtin_forces, no_coordinate, no_extra
+from .noise import BRIDGE_COMPONENT, fill_tile, philox4x64, uniform_open
 
+#: Scheme kinds.
+RULE = 0
+SPLITTING = 1
+EXACT_OD = 2
+EXACT_UD = 3
+#: Splitting letters.
 LETTER_A = 0
 LETTER_B = 1
 LETTER_O = 2
+#: Per-particle status.
+RUNNING = 0
+BELOW = 1
+ABOVE = 2
+NONFINITE = 3
+#: Recorder modes and sources.
+SUM = 0
+SEQUENCE = 1
+SOURCE_POSITIONS = 0
+SOURCE_VELOCITIES = 1
+#: Columns of a recorder row (``rec_int``).
+R_MODE, R_SOURCE, R_PERIOD, R_OFFSET, R_TAPS, R_SPACING, R_FIRST, R_COUNT, R_BASE = range(9)
+N_REC_COLUMNS = 9
+#: Stop kinds and the layout of ``stop_int`` (kind, axis, bridge) and
+#: ``stop_real`` (below, above, centre x, y, z, diffusion coefficient for the bridge).
+STOP_NONE = 0
+STOP_AXIS = 1
+STOP_RADIUS = 2
+STOP_USER = 3
 #: Particles per tile.
 TILE = 64
 #: Steps of noise generated per block.
 BLOCK = 64
 
-#: The user term (see :mod:`langsim.kernels.specialise`, which compiles copies
-#: of these kernels with its own ``extra_force``): none in this module.
+#: The user terms (see :mod:`langsim.kernels.specialise`, which compiles copies
+#: of these kernels with its own ``extra_force`` and ``extra_coordinate``).
 extra_force = no_extra
+extra_coordinate = no_coordinate
 HAS_EXTRA = False
 
 
@@ -77,212 +125,352 @@ def _any_nonfinite(bits):
 
 
 @njit(inline="always", cache=True)
-def _first_nonfinite(X):
-    for i in range(X.shape[0]):
-        for a in range(X.shape[1]):
-            if not math.isfinite(X[i, a]):
-                return i
-    return -1
+def _first_tap(row, c):
+    """(frame, tap, step count) of the first tap of a recorder at or after step count c."""
+    period, offset, n_taps, spacing = row[R_PERIOD], row[R_OFFSET], row[R_TAPS], row[R_SPACING]
+    if c <= offset:
+        return 0, 0, offset
+    rel = c - offset
+    k = rel // period
+    j = rel - k * period
+    i = (j + spacing - 1) // spacing
+    if i < n_taps:
+        return k, i, offset + k * period + i * spacing
+    return k + 1, 0, offset + (k + 1) * period
 
 
 @njit(inline="always", cache=True)
-def _per_element(per_axis, n):
-    """Repeat a per-axis coefficient for the n*d elements of a flat (n, d) tile."""
-    d = per_axis.shape[0]
-    out = np.empty(n * d)
-    for i in range(n):
-        for a in range(d):
-            out[i * d + a] = per_axis[a]
-    return out
+def _tap(r, k, i, rec_int, rec_w, rec_acc, rec_out, src, p0, n_total):
+    """Apply tap i of frame k of recorder r to the tile's ``src`` (n, d); store a completed frame."""
+    row = rec_int[r]
+    n, d = src.shape
+    mode = row[R_MODE]
+    if mode == SUM:
+        w = rec_w[r, i]
+        if i == 0:
+            for p in range(n):
+                for a in range(d):
+                    rec_acc[r, 0, p0 + p, a] = w * src[p, a]
+        else:
+            for p in range(n):
+                for a in range(d):
+                    rec_acc[r, 0, p0 + p, a] += w * src[p, a]
+    else:
+        for p in range(n):
+            for a in range(d):
+                rec_acc[r, i, p0 + p, a] = src[p, a]
+    n_taps = row[R_TAPS]
+    if i == n_taps - 1:
+        f = k - row[R_FIRST]
+        if 0 <= f < row[R_COUNT]:
+            kept = 1 if mode == SUM else n_taps
+            for j in range(kept):
+                base = row[R_BASE] + (f * kept + j) * n_total * d
+                for p in range(n):
+                    for a in range(d):
+                        rec_out[base + (p0 + p) * d + a] = rec_acc[r, j, p0 + p, a]
 
 
-@njit(parallel=True, cache=True)
-def advance_overdamped(x, step0, n_steps, dt, kT, friction, averaged_noise,
-                       k0, k1, codes, params, extra_params, every, out_x, status):
-    """Advance overdamped particles by ``n_steps`` steps in place.
+@njit(inline="always", cache=True)
+def _coordinate(stop_int, stop_real, extra_params, x_row):
+    kind = stop_int[0]
+    if kind == STOP_AXIS:
+        return x_row[stop_int[1]]
+    if kind == STOP_RADIUS:
+        r2 = 0.0
+        for a in range(x_row.shape[0]):
+            s = x_row[a] - stop_real[2 + a]
+            r2 += s * s
+        return math.sqrt(r2)
+    return extra_coordinate(x_row, extra_params)
 
-    x_{n+1} = x_n + (dt/gamma) F(x_n, t_n) + sqrt(2 kT dt/gamma) eta_n with
-    eta_n = xi_n (Euler-Maruyama) or (xi_n + xi_{n+1})/2 (Leimkuhler-Matthews,
-    ``averaged_noise``). Positions after steps that are multiples of
-    ``every`` are written to ``out_x[frame]``, frame 0 being the first such
-    step after ``step0`` (``step0`` itself a multiple of ``every``).
+
+@njit(inline="always", cache=True)
+def _bridge_hit(k0, k1, stream, pid, count, q_prev, q, below, above, diffusion, dt):
+    """Brownian-bridge test between two steps that reached neither level: BELOW, ABOVE or RUNNING.
+
+    For Brownian motion with diffusion coefficient D pinned at q_prev and q
+    over dt, both on the inner side of a level L, the probability that the
+    path touched L in between is exp(-(L - q_prev)(L - q) / (D dt)) (the
+    distribution of the maximum of a Brownian bridge; common practice in
+    first-passage simulation). The two uniforms come from their own Philox
+    counter (component word ``BRIDGE_COMPONENT``).
     """
-    n_particles, d = x.shape
-    n_tiles = (n_particles + TILE - 1) // TILE
-    mobility_dt = np.empty(d)
-    amp = np.empty(d)
-    for a in range(d):
-        mobility_dt[a] = dt / friction[a]
-        amp[a] = math.sqrt(2.0 * kT * dt / friction[a])
-        if averaged_noise:
-            amp[a] *= 0.5
-    extra = 1 if averaged_noise else 0
-    for tile in prange(n_tiles):
-        p0 = tile * TILE
-        n = min(TILE, n_particles - p0)
-        nd = n * d
-        X = x[p0:p0 + n].copy()
-        F = np.empty((n, d))
-        Fx = np.empty(d)
-        energy = np.empty(n)
-        buf = np.empty((BLOCK + 1, n, d))
-        xf = X.reshape(nd)
-        ff = F.reshape(nd)
-        bits = xf.view(np.uint64)
-        noise = buf.reshape((BLOCK + 1, nd))
-        mob = _per_element(mobility_dt, n)
-        scale = _per_element(amp, n)
-        status[tile, 0] = 0
-        status[tile, 1] = -1
-        status[tile, 2] = -1
-        done = 0
-        while done < n_steps:
-            nb = min(BLOCK, n_steps - done)
-            first = step0 + done
-            fill_tile(k0, k1, p0, n, d, first, nb + extra, buf)
-            failed = False
-            for s in range(nb):
-                step = first + s
-                _forces(codes, params, extra_params, X, step * dt, F, Fx, energy)
-                xi = noise[s]
-                if averaged_noise:
-                    xi1 = noise[s + 1]
-                    for j in range(nd):
-                        xf[j] += mob[j] * ff[j] + scale[j] * (xi[j] + xi1[j])
-                else:
-                    for j in range(nd):
-                        xf[j] += mob[j] * ff[j] + scale[j] * xi[j]
-                if _any_nonfinite(bits):
-                    status[tile, 0] = 1
-                    status[tile, 1] = p0 + _first_nonfinite(X)
-                    status[tile, 2] = step + 1
-                    failed = True
-                    break
-                if (step + 1) % every == 0:
-                    frame = (step + 1 - step0) // every - 1
-                    out_x[frame, p0:p0 + n, :] = X
-            if failed:
-                break
-            done += nb
-        x[p0:p0 + n] = X
+    scale = diffusion * dt
+    arg_hi = (above - q_prev) * (above - q) / scale if above < math.inf else math.inf
+    arg_lo = (q_prev - below) * (q - below) / scale if below > -math.inf else math.inf
+    if arg_hi > 40.0 and arg_lo > 40.0:
+        return RUNNING
+    w0, w1, w2, w3 = philox4x64(np.uint64(count), pid, BRIDGE_COMPONENT, stream, k0, k1)
+    if arg_hi <= 40.0 and uniform_open(w0) < math.exp(-arg_hi):
+        return ABOVE
+    if arg_lo <= 40.0 and uniform_open(w1) < math.exp(-arg_lo):
+        return BELOW
+    return RUNNING
 
 
-@njit(parallel=True, cache=True)
-def advance_underdamped(x, v, step0, n_steps, dt, kT, mass, friction, noise_friction,
-                        letters, fractions, k0, k1, codes, params, extra_params, every,
-                        out_x, out_v, record_v, status):
-    """Advance underdamped particles by a splitting scheme, in place.
+@njit(nogil=True, cache=True, error_model="numpy")
+def advance(x, v, ids, status, event_step, p_begin, p_end, step0, n_steps, dt,
+            k0, k1, stream, scheme, coef, letters, codes, params, extra_params,
+            rec_int, rec_w, rec_acc, rec_out, include_start, stop_int, stop_real):
+    """Advance particles ``p_begin .. p_end - 1`` from step count ``step0`` by ``n_steps``, in place.
 
-    ``letters`` (int64) and ``fractions`` (float64) spell the splitting, e.g.
-    BAOAB = (B, A, O, A, B) with (0.5, 0.5, 1, 0.5, 0.5). The O letter is the
-    exact update v <- c v + sqrt((1 - c^2) kT_noise/m) xi with c = exp(-gamma h/m),
-    gamma = ``friction`` (per axis, total damping) and kT_noise = kT
-    ``noise_friction``/``friction``: damping without noise (cold damping,
-    friction > noise_friction) lowers the axis' temperature; equal arrays give
-    the thermal O step. Each O letter of a step draws its own variates
-    (components o*d .. o*d+d-1).
-    Recorded velocities are those at the end of the full step.
+    Parameters
+    ----------
+    x, v : float64 (n, d), C order
+        Positions and velocities (v unused but present for overdamped kinds).
+    ids : uint64 (n,)
+        Noise identity of each particle (counter word 1).
+    status, event_step : int64 (n,)
+        Per-particle status and the step count at which it was set.
+    step0, n_steps : int
+        The state is at step count ``step0``; afterwards at ``step0 + n_steps``.
+    dt : float
+        Step, s (time of step count c is c dt).
+    k0, k1 : uint64
+        Philox key. ``stream`` (uint64) is counter word 3.
+    scheme : int
+        RULE, SPLITTING, EXACT_OD or EXACT_UD; ``coef`` (rows, 8, d) its data
+        (see the module notes) and ``letters`` (int64) the splitting.
+    codes, params, extra_params
+        Built-in force rows and the user terms' parameter vector.
+    rec_int, rec_w, rec_acc, rec_out
+        Recorders (rows of ``N_REC_COLUMNS`` ints, tap weights, partial frames
+        (R, taps, n, d), flat output of completed frames).
+    include_start : bool
+        Apply taps at step count ``step0`` itself (the first call of a run).
+    stop_int, stop_real
+        Stop condition.
     """
-    n_particles, d = x.shape
+    n_total, d = x.shape
+    n_rec = rec_int.shape[0]
     n_letters = letters.shape[0]
-    n_o = 0
-    for j in range(n_letters):
-        if letters[j] == LETTER_O:
-            n_o += 1
-    n_comp = d * n_o
-    ou_c = np.empty((n_letters, d))
-    ou_amp = np.empty((n_letters, d))
-    for j in range(n_letters):
-        for a in range(d):
-            c = math.exp(-friction[a] * fractions[j] * dt / mass)
-            ou_c[j, a] = c
-            ratio = noise_friction[a] / friction[a]      # exactly 1.0 without feedback
-            ou_amp[j, a] = math.sqrt((1.0 - c * c) * kT * ratio / mass)
-    n_tiles = (n_particles + TILE - 1) // TILE
-    for tile in prange(n_tiles):
-        p0 = tile * TILE
-        n = min(TILE, n_particles - p0)
+    if scheme == RULE:
+        n_comp = d
+        extra = 1 if coef[0, 2, 0] != 0.0 else 0
+    elif scheme == SPLITTING:
+        n_o = 0
+        for j in range(n_letters):
+            if letters[j] == LETTER_O:
+                n_o += 1
+        n_comp = d * n_o
+        extra = 0
+    elif scheme == EXACT_OD:
+        n_comp = d
+        extra = 0
+    else:
+        n_comp = 2 * d
+        extra = 0
+    n_osc = coef.shape[0] - 2 if scheme >= EXACT_OD else 0
+    stop_kind = stop_int[0]
+    bridge = stop_int[2] != 0
+    below = stop_real[0]
+    above = stop_real[1]
+    bridge_d = stop_real[5]
+    p0 = p_begin
+    while p0 < p_end:
+        n = min(TILE, p_end - p0)
         nd = n * d
         X = x[p0:p0 + n].copy()
         V = v[p0:p0 + n].copy()
-        F = np.empty((n, d))
+        F = np.zeros((n, d))
         Fx = np.empty(d)
         energy = np.empty(n)
-        buf = np.empty((BLOCK, n, max(n_comp, 1)))
+        buf = np.empty((BLOCK + 1, n, max(n_comp, 1)))
+        noise = buf.reshape((BLOCK + 1, n * max(n_comp, 1)))
         xf = X.reshape(nd)
         vf = V.reshape(nd)
         ff = F.reshape(nd)
         xbits = xf.view(np.uint64)
         vbits = vf.view(np.uint64)
-        # per-element O coefficients, and where each element's variate sits in
-        # a flat noise row (index i*n_comp + o*d + a)
-        c_el = np.empty((n_letters, nd))
-        amp_el = np.empty((n_letters, nd))
-        where = np.empty((max(n_o, 1), nd), dtype=np.int64)
-        for j in range(n_letters):
-            c_el[j] = _per_element(ou_c[j], n)
-            amp_el[j] = _per_element(ou_amp[j], n)
-        for o in range(n_o):
-            for i in range(n):
+        # per-element coefficients: element e = i d + a
+        live = np.ones(nd)
+        dead = np.zeros(nd)
+        c1 = np.empty((max(n_letters, 2), nd))
+        c2 = np.empty((max(n_letters, 2), nd))
+        where = np.empty((max(n_letters, 1), nd), dtype=np.int64)
+        if scheme == RULE:
+            for e in range(nd):
+                c1[0, e] = coef[0, 0, e % d]
+                c2[0, e] = coef[0, 1, e % d]
+        elif scheme == SPLITTING:
+            o_index = 0
+            for j in range(n_letters):
+                for e in range(nd):
+                    c1[j, e] = coef[j, 0, e % d]
+                    c2[j, e] = coef[j, 1, e % d]
+                if letters[j] == LETTER_O:
+                    for i in range(n):
+                        for a in range(d):
+                            where[j, i * d + a] = i * n_comp + o_index * d + a
+                    o_index += 1
+        n_live = 0
+        for i in range(n):
+            if status[p0 + i] != RUNNING:
                 for a in range(d):
-                    where[o, i * d + a] = i * n_comp + o * d + a
-        noise = buf.reshape((BLOCK, n * max(n_comp, 1)))
-        status[tile, 0] = 0
-        status[tile, 1] = -1
-        status[tile, 2] = -1
+                    live[i * d + a] = 0.0
+                    dead[i * d + a] = 1.0
+                    if status[p0 + i] == NONFINITE:
+                        X[i, a] = 0.0
+                        V[i, a] = 0.0
+            else:
+                n_live += 1
+        q_prev = np.zeros(n)
+        if stop_kind != STOP_NONE:
+            for i in range(n):
+                q_prev[i] = _coordinate(stop_int, stop_real, extra_params, X[i])
+        gx = np.zeros(d)
+        gv = np.zeros(d)
+        # recorders: the next tap of each
+        tap_k = np.zeros(max(n_rec, 1), dtype=np.int64)
+        tap_i = np.zeros(max(n_rec, 1), dtype=np.int64)
+        tap_c = np.zeros(max(n_rec, 1), dtype=np.int64)
+        for r in range(n_rec):
+            k, i, c = _first_tap(rec_int[r], step0 if include_start else step0 + 1)
+            tap_k[r], tap_i[r], tap_c[r] = k, i, c
+            if include_start and c == step0:
+                src = X if rec_int[r, R_SOURCE] == SOURCE_POSITIONS else V
+                _tap(r, k, i, rec_int, rec_w, rec_acc, rec_out, src, p0, n_total)
+                row = rec_int[r]
+                if i + 1 < row[R_TAPS]:
+                    tap_i[r], tap_c[r] = i + 1, c + row[R_SPACING]
+                else:
+                    tap_k[r], tap_i[r] = k + 1, 0
+                    tap_c[r] = row[R_OFFSET] + (k + 1) * row[R_PERIOD]
         force_valid = False
         done = 0
         while done < n_steps:
+            if n_live == 0 and n_rec == 0:
+                break
             nb = min(BLOCK, n_steps - done)
             first = step0 + done
-            fill_tile(k0, k1, p0, n, n_comp, first, nb, buf)
-            failed = False
+            fill_tile(k0, k1, ids, p0, n, n_comp, first, nb + extra, buf, stream)
             for s in range(nb):
                 step = first + s
-                elapsed = 0.0
-                o_index = 0
                 xi = noise[s]
-                for j in range(n_letters):
-                    h = fractions[j] * dt
-                    letter = letters[j]
-                    if letter == LETTER_A:
+                # ---------------------------------------------------- scheme step
+                if scheme == RULE:
+                    _forces(codes, params, extra_params, X, step * dt, F, Fx, energy)
+                    mob = c1[0]
+                    amp = c2[0]
+                    if extra:
+                        xi1 = noise[s + 1]
                         for e in range(nd):
-                            xf[e] += h * vf[e]
-                        elapsed += fractions[j]
-                        force_valid = False
-                    elif letter == LETTER_B:
-                        if not force_valid:
-                            _forces(codes, params, extra_params, X, (step + elapsed) * dt, F, Fx,
-                                    energy)
-                            force_valid = True
-                        kick = h / mass
-                        for e in range(nd):
-                            vf[e] += kick * ff[e]
+                            xf[e] += live[e] * (mob[e] * ff[e] + amp[e] * (xi[e] + xi1[e]))
                     else:
-                        cj = c_el[j]
-                        aj = amp_el[j]
-                        if n_o == 1:
+                        for e in range(nd):
+                            xf[e] += live[e] * (mob[e] * ff[e] + amp[e] * xi[e])
+                elif scheme == SPLITTING:
+                    elapsed = 0.0
+                    for j in range(n_letters):
+                        letter = letters[j]
+                        h = c1[j]
+                        if letter == LETTER_A:
                             for e in range(nd):
-                                vf[e] = cj[e] * vf[e] + aj[e] * xi[e]
+                                xf[e] += live[e] * (h[e] * vf[e])
+                            elapsed += coef[j, 2, 0]
+                            force_valid = False
+                        elif letter == LETTER_B:
+                            if not force_valid:
+                                _forces(codes, params, extra_params, X, (step + elapsed) * dt, F,
+                                        Fx, energy)
+                                force_valid = True
+                            for e in range(nd):
+                                vf[e] += live[e] * (h[e] * ff[e])
                         else:
-                            wo = where[o_index]
+                            a_j = c2[j]
+                            wo = where[j]
                             for e in range(nd):
-                                vf[e] = cj[e] * vf[e] + aj[e] * xi[wo[e]]
-                        o_index += 1
+                                new = h[e] * vf[e] + a_j[e] * xi[wo[e]]
+                                vf[e] = live[e] * new + dead[e] * vf[e]
+                else:
+                    t = step * dt
+                    for a in range(d):
+                        gx[a] = coef[1, 0, a] + coef[1, 1, a] * t
+                        gv[a] = coef[1, 2, a] + coef[1, 3, a] * t
+                    for o in range(n_osc):
+                        ph = coef[2 + o, 4, 0] * t + coef[2 + o, 5, 0]
+                        sn = math.sin(ph)
+                        cs = math.cos(ph)
+                        for a in range(d):
+                            gx[a] += coef[2 + o, 0, a] * sn + coef[2 + o, 1, a] * cs
+                            gv[a] += coef[2 + o, 2, a] * sn + coef[2 + o, 3, a] * cs
+                    if scheme == EXACT_OD:
+                        for i in range(n):
+                            for a in range(d):
+                                e = i * d + a
+                                new = coef[0, 0, a] * xf[e] + gx[a] + coef[0, 4, a] * xi[e]
+                                xf[e] = live[e] * new + dead[e] * xf[e]
+                    else:
+                        for i in range(n):
+                            for a in range(d):
+                                e = i * d + a
+                                z0 = xi[i * n_comp + a]
+                                z1 = xi[i * n_comp + d + a]
+                                nx = (coef[0, 0, a] * xf[e] + coef[0, 1, a] * vf[e] + gx[a]
+                                      + coef[0, 4, a] * z0)
+                                nv = (coef[0, 2, a] * xf[e] + coef[0, 3, a] * vf[e] + gv[a]
+                                      + coef[0, 5, a] * z0 + coef[0, 6, a] * z1)
+                                xf[e] = live[e] * nx + dead[e] * xf[e]
+                                vf[e] = live[e] * nv + dead[e] * vf[e]
+                count = step + 1
+                # ---------------------------------------------------- status
                 if _any_nonfinite(xbits) or _any_nonfinite(vbits):
-                    bad = _first_nonfinite(X)
-                    status[tile, 0] = 1
-                    status[tile, 1] = p0 + (bad if bad >= 0 else _first_nonfinite(V))
-                    status[tile, 2] = step + 1
-                    failed = True
-                    break
-                if (step + 1) % every == 0:
-                    frame = (step + 1 - step0) // every - 1
-                    out_x[frame, p0:p0 + n, :] = X
-                    if record_v:
-                        out_v[frame, p0:p0 + n, :] = V
-            if failed:
-                break
+                    for i in range(n):
+                        bad = False
+                        for a in range(d):
+                            if not (math.isfinite(X[i, a]) and math.isfinite(V[i, a])):
+                                bad = True
+                        if bad and status[p0 + i] == RUNNING:
+                            status[p0 + i] = NONFINITE
+                            event_step[p0 + i] = count
+                            n_live -= 1
+                        if bad:
+                            for a in range(d):
+                                live[i * d + a] = 0.0
+                                dead[i * d + a] = 1.0
+                                X[i, a] = 0.0
+                                V[i, a] = 0.0
+                    force_valid = False
+                if stop_kind != STOP_NONE:
+                    for i in range(n):
+                        if status[p0 + i] != RUNNING:
+                            continue
+                        q = _coordinate(stop_int, stop_real, extra_params, X[i])
+                        hit = RUNNING
+                        if q <= below:
+                            hit = BELOW
+                        elif q >= above:
+                            hit = ABOVE
+                        elif bridge:
+                            hit = _bridge_hit(k0, k1, stream, ids[p0 + i], count, q_prev[i], q,
+                                              below, above, bridge_d, dt)
+                        q_prev[i] = q
+                        if hit != RUNNING:
+                            status[p0 + i] = hit
+                            event_step[p0 + i] = count
+                            n_live -= 1
+                            for a in range(d):
+                                live[i * d + a] = 0.0
+                                dead[i * d + a] = 1.0
+                # ---------------------------------------------------- recorders
+                for r in range(n_rec):
+                    if count == tap_c[r]:
+                        src = X if rec_int[r, R_SOURCE] == SOURCE_POSITIONS else V
+                        k, i = tap_k[r], tap_i[r]
+                        _tap(r, k, i, rec_int, rec_w, rec_acc, rec_out, src, p0, n_total)
+                        row = rec_int[r]
+                        if i + 1 < row[R_TAPS]:
+                            tap_i[r], tap_c[r] = i + 1, count + row[R_SPACING]
+                        else:
+                            tap_k[r], tap_i[r] = k + 1, 0
+                            tap_c[r] = row[R_OFFSET] + (k + 1) * row[R_PERIOD]
             done += nb
+        for i in range(n):
+            if status[p0 + i] == NONFINITE:
+                for a in range(d):
+                    X[i, a] = math.nan
+                    V[i, a] = math.nan
         x[p0:p0 + n] = X
         v[p0:p0 + n] = V
+        p0 += n
