@@ -27,7 +27,7 @@ import warnings
 _PACKAGE_DIR = os.path.dirname(os.path.abspath(__file__))
 _KERNEL_SOURCES = ("kernels/forces.py", "kernels/noise.py", "kernels/schemes.py",
                    "kernels/walls.py")
-_resolved = None
+_resolved = {}
 
 
 class CacheWarning(UserWarning):
@@ -71,9 +71,9 @@ def _make_private(path):
 
 def cache_dir():
     """The cache folder in use (created when needed; see the module notes)."""
-    global _resolved
-    if _resolved is None:
-        path = configured_dir()
+    wanted = configured_dir()
+    if wanted not in _resolved:
+        path = wanted
         problem = _make_private(path)
         if problem is not None:
             fallback = tempfile.mkdtemp(prefix="langsim-cache-")
@@ -81,8 +81,8 @@ def cache_dir():
                           f"{fallback!r} for this process only (set LANGSIM_CACHE_DIR to a "
                           "folder of your own)", CacheWarning, stacklevel=2)
             path = fallback
-        _resolved = path
-    return _resolved
+        _resolved[wanted] = path
+    return _resolved[wanted]
 
 
 def subdir(name):
@@ -137,7 +137,7 @@ def install_numba_locator():
             path = os.path.abspath(py_file)
             modules = os.path.join(configured_dir(), "modules")
             if not (path.startswith(_PACKAGE_DIR + os.sep) or path.startswith(modules + os.sep)
-                    or (_resolved is not None and path.startswith(_resolved + os.sep))):
+                    or any(path.startswith(p + os.sep) for p in _resolved.values())):
                 return None
             if not os.path.exists(py_file):
                 return None

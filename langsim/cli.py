@@ -215,7 +215,8 @@ def cmd_run(args):
 
 
 def _report_run(args, traj):
-    if getattr(traj, "already_complete", False):
+    stats = traj.run_stats
+    if stats is not None and stats.already_complete:
         print(f"{traj.path} already holds the complete run ({traj.n_frames} frames); "
               "nothing to do", file=sys.stderr)
         return EXIT_OK
@@ -226,15 +227,16 @@ def _report_run(args, traj):
               file=sys.stderr)
         return EXIT_FAILED
     if not args.quiet:
-        s = getattr(traj, "stats", {})
         cfg = traj.config
-        resumed = " (resumed)" if getattr(traj, "resumed", False) else ""
+        resumed = " (resumed)" if stats.resumed else ""
+        compiled = (f" Compiling the kernels took {stats.compile_time:.3g} s (once per machine)."
+                    if stats.compile_time > 1.0 else "")
         print(f"Wrote {traj.path}{resumed}: {traj.n_frames} frames of {traj.n_particles} "
               f"particle(s) in {traj.dimensions}D, {cfg['dynamics']['duration']:.6g} s simulated "
               f"with {cfg['dynamics']['scheme']} at dt = {cfg['dynamics']['dt']:.6g} s. "
-              f"This session took {s.get('wall_time', float('nan')):.3g} s of wall time for "
-              f"{s.get('steps', 0)} steps, {s.get('ns_per_particle_step', float('nan')):.3g} ns "
-              f"per particle-step. Inspect it with 'langsim info {traj.path}', compare it with "
+              f"This session took {stats.wall_time:.3g} s of wall time for "
+              f"{stats.steps} steps, {stats.ns_per_particle_step:.3g} ns "
+              f"per particle-step.{compiled} Inspect it with 'langsim info {traj.path}', compare it with "
               f"theory with 'langsim check {traj.path}'.")
     return EXIT_OK
 
@@ -283,13 +285,13 @@ def cmd_info(args):
     with load(args.file) as traj:
         cfg = traj.config
         dyn, par, med, out = cfg["dynamics"], cfg["particles"], cfg["medium"], cfg["output"]
-        f = traj._file
+        meta = traj.metadata
         expected = dyn["steps"] // out["every"] + 1
-        comp = f["positions"].compression or "none"
+        comp = meta["compression"]
         lines = [
             f"file         {traj.path}",
-            f"format       {f.attrs['format']} version {int(f.attrs['format_version'])}, "
-            f"written by langsim {f.attrs['langsim_version']} on {f.attrs['created']}",
+            f"format       {meta['format']} version {meta['format_version']}, "
+            f"written by langsim {meta['langsim_version']} on {meta['created']}",
             f"dynamics     {dyn['regime']}, {dyn['scheme']}, dt = {dyn['dt']:.6g} s, "
             f"{dyn['steps']} steps = {dyn['duration']:.6g} s",
             f"particles    {par['count']} in {par['dimensions']}D, friction "
@@ -318,7 +320,7 @@ def cmd_info(args):
             + (f", velocities {traj.velocities.dtype}" if traj.velocities is not None else "")
             + f", compression {comp}",
         ]
-        state = getattr(traj, "state", "complete" if traj.status.complete else "interrupted")
+        state = traj.file_state
         if state == "complete":
             lines.append("status       complete")
         elif state == "failed":

@@ -337,11 +337,15 @@ def _short(value):
     return text if len(text) <= 60 else text[:57] + "..."
 
 
-def _chunks(n_particles, dims, itemsize, n_frames):
-    frame = n_particles * dims * itemsize
+def _chunks(frame_shape, itemsize, n_frames):
+    """Chunks of a dataset of frames of ``frame_shape``: about CHUNK_TARGET_BYTES of whole
+    frames, or for a frame above CHUNK_MAX_BYTES one frame split along its first axis."""
+    frame_shape = tuple(int(k) for k in frame_shape)
+    row = int(np.prod(frame_shape[1:])) * itemsize
+    frame = frame_shape[0] * row
     if frame > CHUNK_MAX_BYTES:
-        return (1, max(1, CHUNK_MAX_BYTES // (dims * itemsize)), dims)
-    return (max(1, min(n_frames, CHUNK_TARGET_BYTES // frame)), n_particles, dims)
+        return (1, max(1, CHUNK_MAX_BYTES // row)) + frame_shape[1:]
+    return (max(1, min(n_frames, CHUNK_TARGET_BYTES // frame)),) + frame_shape
 
 
 class FrameView:
@@ -452,9 +456,12 @@ class HDF5Sink:
         self._lock_fd = None       # our own lock when HDF5 does not lock
 
     # ---------------------------------------------------------------- start
-    def start(self, spec):
+    def start(self, spec, layout):
+        """Create the file for ``layout`` ({group: (n_frames, [(name, shape, units[, dtype])])}),
+        or reopen it to resume (a :class:`ResumeState`)."""
         import os
         self.spec = spec
+        self.layout_spec = layout
         if self.resume and os.path.exists(self.path):
             return self._reopen(spec)
         self._create(spec)
@@ -516,8 +523,8 @@ class HDF5Sink:
         import h5py
         from . import __version__
         p, out = spec.particles, spec.output
-        dtype = np.float32 if out.precision == "single" else np.float64
-        chunks = _chunks(p.count, p.dimensions, np.dtype(dtype).itemsize, spec.n_frames)
+        dtype = _dtype(spec)
+        chunks = _chunks((p.count, p.dimensions), np.dtype(dtype).itemsize, self.layout_spec[""][0])
         try:
             f = h5py.File(path, "x", fs_strategy="none", rdcc_w0=1.0,
                           rdcc_nbytes=_cache_bytes(chunks, dtype))
@@ -534,58 +541,49 @@ class HDF5Sink:
         a["seed"] = np.int64(spec.seed)
         a["state"] = STATE_RUNNING
         a["complete"] = False
-        a["status"] = _status_json(Status(False, "running"))
+        a["status"] = _status_json(Status("interrupted", "running"))
         a["n_frames"] = 0
-        units = {**UNITS, **spec.units}     # an oscillator's own units (rad, C, ...)
         kw = {}
         if out.compression == "gzip":
             kw = {"compression": "gzip", "compression_opts": 4, "shuffle": True}
         elif out.compression == "lzf":
             kw = {"compression": "lzf", "shuffle": True}
-        time = f.create_dataset("time", shape=(0,), maxshape=(None,), dtype=np.float64,
-                                chunks=(max(1024, chunks[0]),))
-        time.attrs["units"] = UNITS["time"]
-        names = ["positions"] + (["velocities"] if out.velocities else [])
-        for name in names:
-            ds = f.create_dataset(name, shape=(0, p.count, p.dimensions),
-                                  maxshape=(None, p.count, p.dimensions), dtype=dtype,
-                                  chunks=chunks, **kw)
-            ds.attrs["units"] = units[name]
         cp = f.create_group("checkpoint")
         cp.attrs["step"] = -1
-        cp.attrs["n_frames"] = 0
         cp.attrs["slot"] = -1
         cp.attrs["wall_time"] = 0.0
-        cp.create_dataset("positions", shape=(2, p.count, p.dimensions), dtype=np.float64)
-        cp["positions"].attrs["units"] = units["positions"]
-        if spec.dynamics.regime == "underdamped":
-            cp.create_dataset("velocities", shape=(2, p.count, p.dimensions), dtype=np.float64)
-            cp["velocities"].attrs["units"] = units["velocities"]
-        if kw:          # frames of an unfinished compressed chunk wait here (see _buffer)
-            for name in names:
-                cp.create_dataset("tail_" + name, shape=(2,) + chunks, dtype=dtype)
-        cp.attrs["stored_frames"] = 0
-        cp.attrs["tail_frames"] = 0
+        for group, (n_frames, datasets) in self.layout_spec.items():
+            g = f if group == "" else f.create_group(group)
+            g.attrs["n_frames"] = 0
+            types = [np.dtype(e[3]) if len(e) > 3 else np.dtype(dtype) for e in datasets]
+            chunks = [_chunks(e[1], t.itemsize, n_frames) for e, t in zip(datasets, types)]
+            per = min(c[0] for c in chunks)          # one frame clock: one frame chunk per group
+            time = g.create_dataset("time", shape=(0,), maxshape=(None,), dtype=np.float64,
+                                    chunks=(max(1024, per),))
+            time.attrs["units"] = UNITS["time"]
+            for (name, shape, units, *_), ds_type, c in zip(datasets, types, chunks):
+                ds = g.create_dataset(name, shape=(0,) + tuple(shape),
+                                      maxshape=(None,) + tuple(shape), dtype=ds_type,
+                                      chunks=(per,) + c[1:], **kw)
+                ds.attrs["units"] = units
+                if kw:      # frames of an unfinished compressed chunk wait here (see _FrameGroup)
+                    cp.create_dataset(_tail_name(group, name), shape=(2, per) + c[1:],
+                                      dtype=ds_type)
+            for key, value in _group_counters(group, 0, 0, 0).items():
+                cp.attrs[key] = value
         f.flush()
-        self._setup(f, names)
+        self._setup(f)
         self.slot = -1
-        self.n_written = 0
-        self.n_stored = 0
 
-    def _setup(self, f, names):
-        self.datasets = [f[n] for n in ["time"] + names]
-        self.data = self.datasets[1:]
-        self.headroom = _headroom(self.datasets, f)
-        first = self.data[0]
-        self.buffered = first.compression is not None
-        self.frame_chunk = first.chunks[0]
-        self.tail = [np.empty((self.frame_chunk,) + first.shape[1:], dtype=first.dtype)
-                     for _ in self.data] if self.buffered else []
-        self.tail_n = 0
+    def _setup(self, f):
+        self.groups = {}
+        for group, (n_frames, datasets) in self.layout_spec.items():
+            names = [e[0] for e in datasets]
+            self.groups[group] = _FrameGroup(f if group == "" else f[group], group, names)
+        self.headroom = _headroom([ds for g in self.groups.values() for ds in g.datasets], f)
 
     def _reopen(self, spec):
         import json
-        import h5py
         f = self._open("r+")
         self.file = f
         try:
@@ -617,98 +615,54 @@ class HDF5Sink:
                 self.file = None
                 self._create(spec, replace=True)
                 return None
-            step, n_frames = int(cp.attrs["step"]), int(cp.attrs["n_frames"])
-            stored = int(cp.attrs.get("stored_frames", n_frames))
-            x = cp["positions"][slot]
-            v = cp["velocities"][slot] if "velocities" in cp else None
-            self._setup(f, ["positions"] + (["velocities"] if "velocities" in f else []))
-            for ds, n in zip(self.datasets, [n_frames] + [stored] * len(self.data)):
-                if ds.shape[0] != n:           # drop frames written after the checkpoint
-                    ds.resize(n, axis=0)
-            if self.buffered:
-                self.tail_n = int(cp.attrs.get("tail_frames", 0))
-                for t, ds in zip(self.tail, self.data):
-                    t[:self.tail_n] = cp["tail_" + ds.name.lstrip("/")][slot, :self.tail_n]
-            f.attrs["n_frames"] = stored
+            step = int(cp.attrs["step"])
+            self._setup(f)
+            n_frames = {}
+            for name, g in self.groups.items():
+                n_frames[name] = g.restore(cp, slot)
+            arrays = {name: cp[name][slot] for name in _STATE_ARRAYS if name in cp}
+            f.attrs["n_frames"] = self.groups[""].n_stored
             f.attrs["state"] = STATE_RUNNING
             f.attrs["complete"] = False
-            f.attrs["status"] = _status_json(Status(False, "running"))
+            f.attrs["status"] = _status_json(Status("interrupted", "running"))
             f.flush()
         except BaseException:
             f.close()
             self.file = None
             raise
         self.slot = slot
-        self.n_written = n_frames
-        self.n_stored = stored
         self.resumed = True
-        return ResumeState(step, n_frames, x, v)
+        return ResumeState(step, n_frames, arrays)
 
     # ---------------------------------------------------------------- write
-    def write(self, frame0, time, positions, velocities):
-        n = frame0 + len(time)
-        arrays = [positions] + ([velocities] if len(self.data) > 1 else [])
+    def write(self, group, frame0, time, arrays):
         try:
-            _put(self.datasets[0], frame0, time)
-            if self.buffered:
-                self._buffer(arrays)
-            else:
-                for ds, data in zip(self.data, arrays):
-                    _put(ds, frame0, data)
-                self.n_stored = n
+            self.groups[group].write(frame0, time, arrays)
         except (OSError, RuntimeError) as exc:
             raise self._failed(exc) from None
-        self.n_written = n
 
-    def _buffer(self, arrays):
-        """Compressed data goes to the file in whole chunks only.
-
-        A compressed chunk rewritten after a checkpoint (to add frames) may land on
-        the very bytes the checkpointed index points at, so a crash then would
-        spoil frames already promised valid. Frames of the unfinished last chunk
-        are kept here, and stored with each checkpoint in ``checkpoint/tail_*``.
-        """
-        cf, k, i = self.frame_chunk, len(arrays[0]), 0
-        while i < k:
-            if self.tail_n == 0 and k - i >= cf:
-                m = (k - i) // cf * cf
-                for ds, data in zip(self.data, arrays):
-                    _put(ds, self.n_stored, data[i:i + m])
-                self.n_stored += m
-            else:
-                m = min(cf - self.tail_n, k - i)
-                for t, data in zip(self.tail, arrays):
-                    t[self.tail_n:self.tail_n + m] = data[i:i + m]
-                self.tail_n += m
-                if self.tail_n == cf:
-                    self._store_tail()
-            i += m
-
-    def _store_tail(self):
-        for ds, t in zip(self.data, self.tail):
-            _put(ds, self.n_stored, t[:self.tail_n])
-        self.n_stored += self.tail_n
-        self.tail_n = 0
-
-    def checkpoint(self, step, positions, velocities):
+    def checkpoint(self, step, arrays):
         """Store the state after ``step`` in the spare slot, flush, then point at it."""
         f = self.file
         try:
             self._ensure_room()
             cp = f["checkpoint"]
             new = 1 - self.slot if self.slot >= 0 else 0
-            cp["positions"][new] = positions
-            if velocities is not None and "velocities" in cp:
-                cp["velocities"][new] = velocities
-            for ds, t in zip(self.data, self.tail):
-                cp["tail_" + ds.name.lstrip("/")][new, :self.tail_n] = t[:self.tail_n]
+            for name, value in arrays.items():
+                if name not in cp:
+                    cp.create_dataset(name, shape=(2,) + value.shape, dtype=np.float64)
+                cp[name][new] = value
+            for g in self.groups.values():
+                g.save_tail(cp, new)
             f.flush()                          # frames and the new slot are on disk ...
             cp.attrs["step"] = int(step)
-            cp.attrs["n_frames"] = int(self.n_written)
-            cp.attrs["stored_frames"] = int(self.n_stored)
-            cp.attrs["tail_frames"] = int(self.tail_n)
+            for g in self.groups.values():
+                for key, value in _group_counters(g.name, g.n_written, g.n_stored,
+                                                  g.tail_n).items():
+                    cp.attrs[key] = value
             cp.attrs["slot"] = new             # ... before anything points at them
-            f.attrs["n_frames"] = int(self.n_stored)
+            for g in self.groups.values():
+                g.node.attrs["n_frames"] = int(g.n_stored)
             f.flush()
         except (OSError, RuntimeError) as exc:
             raise self._failed(exc) from None
@@ -757,24 +711,25 @@ class HDF5Sink:
             return OSError(code, os.strerror(code), self.path)
         return OSError(code, exc.strerror, self.path)
 
-    def finish(self, status):
+    def finish(self, status, run_stats=None):
         f = self.file
         if f is not None:
-            if status.complete:
-                state = STATE_COMPLETE
-            elif status.step >= 0 and status.particle >= 0:
-                state = STATE_FAILED
-            else:
-                state = STATE_INTERRUPTED
-            if state != STATE_INTERRUPTED and self.tail_n:   # nothing will follow these frames
-                self._store_tail()
-            f.attrs["n_frames"] = int(self.n_stored)
+            state = {"complete": STATE_COMPLETE, "blow-up": STATE_FAILED}.get(status.reason,
+                                                                               STATE_INTERRUPTED)
+            if state != STATE_INTERRUPTED:      # nothing will follow these frames
+                for g in self.groups.values():
+                    if g.tail_n:
+                        g.store_tail()
+            for g in self.groups.values():
+                g.node.attrs["n_frames"] = int(g.n_stored)
             f.attrs["status"] = _status_json(status)
             f.attrs["complete"] = bool(status.complete)
             f.attrs["state"] = state
             f.flush()
             self._close_quietly()
-        return load(self.path)
+        traj = load(self.path)
+        traj.run_stats = run_stats
+        return traj
 
     def abort(self):
         """Close after an error without marking the file; frames to the last checkpoint stay
@@ -818,6 +773,103 @@ def _put(ds, start, data):
     if ds.shape[0] < stop:
         ds.resize(stop, axis=0)
     ds[start:stop] = data
+
+
+#: Checkpointed state arrays a resume reads back.
+_STATE_ARRAYS = ("positions", "velocities", "accumulators")
+
+
+def _tail_name(group, name):
+    return f"tail_{group}.{name}" if group else f"tail_{name}"
+
+
+def _group_counters(group, n_written, n_stored, tail_n):
+    """Checkpoint attributes of a frame group (the root keeps the names of langsim 0.1)."""
+    prefix = f"{group}." if group else ""
+    return {prefix + "n_frames": int(n_written), prefix + "stored_frames": int(n_stored),
+            prefix + "tail_frames": int(tail_n)}
+
+
+class _FrameGroup:
+    """The datasets of one frame clock in a file: ``time`` and the data written with it.
+
+    Frames of compressed data reach the file in whole chunks only: a compressed
+    chunk rewritten after a checkpoint (to add frames) may land on the very
+    bytes the checkpointed index points at, so a crash then would spoil frames
+    already promised valid. Frames of the unfinished last chunk wait in
+    ``tail`` and are stored with each checkpoint in ``checkpoint/tail_*``.
+    """
+
+    def __init__(self, node, name, data_names):
+        self.node = node
+        self.name = name
+        self.time = node["time"]
+        self.data = [node[n] for n in data_names]
+        self.datasets = [self.time] + self.data
+        first = self.data[0]
+        self.buffered = first.compression is not None
+        self.frame_chunk = first.chunks[0]
+        self.tail = [np.empty((self.frame_chunk,) + ds.shape[1:], dtype=ds.dtype)
+                     for ds in self.data] if self.buffered else []
+        self.tail_n = 0
+        self.n_written = 0
+        self.n_stored = 0
+
+    def write(self, frame0, time, arrays):
+        data = [arrays[ds.name.rsplit("/", 1)[-1]] for ds in self.data]
+        _put(self.time, frame0, time)
+        if self.buffered:
+            self._buffer(data)
+        else:
+            for ds, values in zip(self.data, data):
+                _put(ds, frame0, values)
+            self.n_stored = frame0 + len(time)
+        self.n_written = frame0 + len(time)
+
+    def _buffer(self, arrays):
+        cf, k, i = self.frame_chunk, len(arrays[0]), 0
+        while i < k:
+            if self.tail_n == 0 and k - i >= cf:
+                m = (k - i) // cf * cf
+                for ds, data in zip(self.data, arrays):
+                    _put(ds, self.n_stored, data[i:i + m])
+                self.n_stored += m
+            else:
+                m = min(cf - self.tail_n, k - i)
+                for t, data in zip(self.tail, arrays):
+                    t[self.tail_n:self.tail_n + m] = data[i:i + m]
+                self.tail_n += m
+                if self.tail_n == cf:
+                    self.store_tail()
+            i += m
+
+    def store_tail(self):
+        for ds, t in zip(self.data, self.tail):
+            _put(ds, self.n_stored, t[:self.tail_n])
+        self.n_stored += self.tail_n
+        self.tail_n = 0
+
+    def save_tail(self, cp, slot):
+        for ds, t in zip(self.data, self.tail):
+            cp[_tail_name(self.name, ds.name.rsplit("/", 1)[-1])][slot, :self.tail_n] = \
+                t[:self.tail_n]
+
+    def restore(self, cp, slot):
+        """Back to the checkpoint in ``slot``: frames after it dropped, the tail reloaded."""
+        prefix = f"{self.name}." if self.name else ""
+        n_written = int(cp.attrs[prefix + "n_frames"])
+        stored = int(cp.attrs.get(prefix + "stored_frames", n_written))
+        for ds, n in zip(self.datasets, [n_written] + [stored] * len(self.data)):
+            if ds.shape[0] != n:
+                ds.resize(n, axis=0)
+        if self.buffered:
+            self.tail_n = int(cp.attrs.get(prefix + "tail_frames", 0))
+            for t, ds in zip(self.tail, self.data):
+                t[:self.tail_n] = cp[_tail_name(self.name, ds.name.rsplit("/", 1)[-1])][
+                    slot, :self.tail_n]
+        self.node.attrs["n_frames"] = stored
+        self.n_written, self.n_stored = n_written, stored
+        return n_written
 
 
 #: Files frozen after a write error (kept referenced so that nothing flushes them).
@@ -896,19 +948,36 @@ def load(path):
             n = min(n, int(f["checkpoint"].attrs["n_frames"]))
         s = json.loads(f.attrs["status"])
         if state == STATE_RUNNING:
-            s = {"complete": False, "message": "not finished: the writer is still running or was "
-                 "killed; frames up to the last checkpoint are valid"}
-        status = Status(**{k: (float("nan") if (k == "time" and v is None) else v)
-                           for k, v in s.items() if k in Status.__dataclass_fields__})
+            s = {"reason": "interrupted", "message": "not finished: the writer is still running "
+                 "or was killed; frames up to the last checkpoint are valid"}
+        status = Status.from_dict(s)
         config = json.loads(f.attrs["config"])
         time = f["time"][:n]
         pos = FrameView(f["positions"], n)
         vel = FrameView(f["velocities"], n) if "velocities" in f else None
+        groups, units = {}, {"positions": pos.units}
+        if vel is not None:
+            units["velocities"] = vel.units
+        cp = f["checkpoint"].attrs
+        for name, node in f.items():
+            if name == "checkpoint" or not hasattr(node, "keys") or "time" not in node:
+                continue
+            m = int(node.attrs.get("n_frames", 0))
+            if state == STATE_RUNNING:
+                m = min(m, int(cp.get(f"{name}.n_frames", m)))
+            groups[name] = {"time": node["time"][:m]}
+            for key, ds in node.items():
+                if key != "time":
+                    groups[name][key] = FrameView(ds, m)
+                    units[f"{name}/{key}"] = _attr_str(ds.attrs.get("units", ""))
+        metadata = {"format": _attr_str(f.attrs["format"]),
+                    "format_version": int(f.attrs["format_version"]),
+                    "langsim_version": _attr_str(f.attrs.get("langsim_version", "?")),
+                    "created": _attr_str(f.attrs.get("created", "?")),
+                    "compression": f["positions"].compression or "none"}
     except BaseException:
         f.close()
         raise
-    units = {name: _attr_str(f[name].attrs.get("units", UNITS[name])) for name in ("positions", "velocities")
-             if name in f}
-    traj = Trajectory(time, pos, vel, config, status, path=path, file=f, units=units)
-    traj.state = state
+    traj = Trajectory(time, pos, vel, config, status, path=path, file=f, groups=groups,
+                      units=units, file_state=state, metadata=metadata)
     return traj

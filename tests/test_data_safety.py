@@ -96,7 +96,7 @@ def setup(tmp_path_factory):
 def _assert_intact(path, reference):
     """The file holds the whole run, bit-identical to the in-memory reference."""
     with langsim.load(path) as traj:
-        assert traj.status.complete and traj.state == "complete"
+        assert traj.status.complete and traj.file_state == "complete"
         assert traj.n_frames == reference.n_frames == 201
         np.testing.assert_array_equal(np.asarray(traj.positions), reference.positions)
     leftovers = [n for n in os.listdir(os.path.dirname(path)) if n.endswith(".part")]

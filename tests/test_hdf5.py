@@ -150,11 +150,11 @@ def test_valid_frames_only_after_unfinished_write(tmp_path):
     """Frames written after the last checkpoint are not shown for a file left 'running'."""
     spec = _config.load(dict(EM_TRAP, dynamics={"dt": 5e-4, "steps": 200}))
     sink = HDF5Sink(tmp_path / "u.h5")
-    sink.start(spec)
+    sink.start(spec, Engine(spec, sink).layout())
     x = np.zeros((4000, 1))
-    sink.write(0, np.array([0.0]), x[None], None)
-    sink.checkpoint(0, x, None)
-    sink.write(1, np.array([1.0, 2.0]), np.ones((2, 4000, 1)), None)   # no checkpoint after
+    sink.write("", 0, np.array([0.0]), {"positions": x[None]})
+    sink.checkpoint(0, {"positions": x})
+    sink.write("", 1, np.array([1.0, 2.0]), {"positions": np.ones((2, 4000, 1))})   # no checkpoint
     sink.abort()                      # closed without finishing, as a killed writer leaves it
     with h5py.File(tmp_path / "u.h5", "r") as f:
         assert f["positions"].shape[0] == 3 and f.attrs["state"] == "running"

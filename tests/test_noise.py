@@ -27,8 +27,10 @@ KEY = (0x3C6EF372FE94F82B, 0xA54FF53A5F1D36F1)
 U64 = 2 ** 64
 
 
-def tile(key, p0, n, n_comp, step0, nb):
-    return noise._tile(np.uint64(key[0]), np.uint64(key[1]), p0, n, n_comp, step0, nb)
+def tile(key, p0, n, n_comp, step0, nb, stream=0):
+    ids = np.arange(p0, p0 + n, dtype=np.uint64)
+    return noise._tile(np.uint64(key[0]), np.uint64(key[1]), ids, n_comp, step0, nb,
+                       np.uint64(stream))
 
 
 # --------------------------------------------------------------------------- Philox
@@ -204,7 +206,8 @@ def test_pure_function_of_indices():
 
 def test_fill_tile_writes_only_its_window():
     buf = np.full((10, 4, 2), np.nan)
-    noise.fill_tile(np.uint64(1), np.uint64(2), 0, 3, 1, 5, 6, buf)
+    noise.fill_tile(np.uint64(1), np.uint64(2), np.arange(3, dtype=np.uint64), 0, 3, 1, 5, 6, buf,
+                    np.uint64(0))
     assert np.all(np.isfinite(buf[:6, :3, 0]))
     assert np.all(np.isnan(buf[6:])) and np.all(np.isnan(buf[:, 3])) and np.all(np.isnan(buf[:, :, 1]))
 

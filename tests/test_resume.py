@@ -166,7 +166,7 @@ def test_interrupted_in_process_resumes_without_seed_in_config(tmp_path, monkeyp
     # Settings that do not change the numbers may differ on resume.
     cfg["output"] = dict(cfg["output"], checkpoint_every=5.0, compression="lzf")
     traj = langsim.run(cfg, out, progress=False, resume=True)
-    assert traj.resumed and traj.status.complete
+    assert traj.run_stats.resumed and traj.status.complete
     traj.close()
     ref = Engine(_config.load({**cfg, "seed": seed}), langsim.trajectory.MemorySink()).run()
     assert_same_run(out, ref)
