@@ -392,13 +392,9 @@ class Simulation:
         self.tables = _tables(spec, spec.terms)
         self.tables_static = _tables(spec, static)
         user = _pot.user_terms(spec.terms, d)
-        if user is None:
-            self.kernel = _k.advance
-            self.extra_params = np.zeros(0)
-        else:
-            from .kernels.specialise import kernel_for
-            self.kernel = kernel_for(user)
-            self.extra_params = user.parameters
+        self.extra_params = np.zeros(0) if user is None else user.parameters
+        from .kernels.specialise import kernel_for
+        self.kernel = kernel_for(self.tables[0], user)
         self.key = seeding.kernel_key(spec.seed, spec.spawn_key)
         self.diffusion = spec.kT / np.array(spec.particles.friction, dtype=np.float64)
 
@@ -468,7 +464,7 @@ class Simulation:
         args = (state.positions, state.velocities, state.ids, state.status, state.event_step)
         rest = (np.int64(state.step), np.int64(n_steps), self.dt,
                 np.uint64(state.key[0]), np.uint64(state.key[1]), stream,
-                np.int64(kind), coef, letters, codes, params, self.extra_params,
+                coef, letters, codes, params, self.extra_params,
                 rec_int, rec_w, state.accumulators, rec_out, include_start, stop_int, stop_real)
         blocks = self._blocks(n)
         if len(blocks) == 1:

@@ -39,13 +39,13 @@ _TWO_PI = 2.0 * math.pi
 
 
 @njit(inline="always", cache=True)
-def _moving_center(row, axis, t):
-    """Trap centre on ``axis`` at time t: c + v t + A sin(2 pi f t + phase)."""
-    return (row[3 + axis] + row[6 + axis] * t
-            + row[9 + axis] * math.sin(_TWO_PI * row[12] * t + row[13]))
+def _moving_center(params, k, axis, t):
+    """Trap centre of term k on ``axis`` at time t: c + v t + A sin(2 pi f t + phase)."""
+    return (params[k, 3 + axis] + params[k, 6 + axis] * t
+            + params[k, 9 + axis] * math.sin(_TWO_PI * params[k, 12] * t + params[k, 13]))
 
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
 def builtin_forces(codes, params, X, t, F, energy, with_energy):
     """Forces (and optionally energies) of the built-in terms.
 
@@ -58,29 +58,33 @@ def builtin_forces(codes, params, X, t, F, energy, with_energy):
     F : float64 array (n, d), N; overwritten with -grad U.
     energy : float64 array (n,), J; overwritten when ``with_energy``.
     with_energy : bool
+
+    Written with 2D indexing only (no row views or slice assignments, whose
+    reference counting would cost more than the arithmetic for one particle).
     """
     n, d = X.shape
-    F[:, :] = 0.0
-    if with_energy:
-        energy[:] = 0.0
+    for i in range(n):
+        for a in range(d):
+            F[i, a] = 0.0
+        if with_energy:
+            energy[i] = 0.0
     for k in range(codes.shape[0]):
-        row = params[k]
         code = codes[k]
         if code == HARMONIC:
             for a in range(d):
-                kap = row[a]
-                c = _moving_center(row, a, t)
+                kap = params[k, a]
+                c = _moving_center(params, k, a, t)
                 for i in range(n):
                     s = X[i, a] - c
                     F[i, a] -= kap * s
                     if with_energy:
                         energy[i] += 0.5 * kap * s * s
         elif code == DOUBLE_WELL:
-            barrier = row[0]
-            half = 0.5 * row[1]
-            ax = int(row[2])
+            barrier = params[k, 0]
+            half = 0.5 * params[k, 1]
+            ax = int(params[k, 2])
             for a in range(d):
-                c = row[3 + a]
+                c = params[k, 3 + a]
                 if a == ax:
                     for i in range(n):
                         q = (X[i, a] - c) / half
@@ -89,39 +93,39 @@ def builtin_forces(codes, params, X, t, F, energy, with_energy):
                         if with_energy:
                             energy[i] += barrier * w * w
                 else:
-                    kap = row[6 + a]
+                    kap = params[k, 6 + a]
                     for i in range(n):
                         s = X[i, a] - c
                         F[i, a] -= kap * s
                         if with_energy:
                             energy[i] += 0.5 * kap * s * s
         elif code == PERIODIC:
-            barrier = row[0]
-            wave = _TWO_PI / row[1]
-            tilt = row[2]
-            ax = int(row[3])
-            c = row[4 + ax]
+            barrier = params[k, 0]
+            wave = _TWO_PI / params[k, 1]
+            tilt = params[k, 2]
+            ax = int(params[k, 3])
+            c = params[k, 4 + ax]
             for i in range(n):
                 s = X[i, ax] - c
                 F[i, ax] += tilt - 0.5 * barrier * wave * math.sin(wave * s)
                 if with_energy:
                     energy[i] += 0.5 * barrier * (1.0 - math.cos(wave * s)) - tilt * s
         elif code == GAUSSIAN_WELL:
-            depth = row[0]
+            depth = params[k, 0]
             for i in range(n):
                 r2 = 0.0
                 for a in range(d):
-                    s = X[i, a] - row[4 + a]
-                    r2 += s * s / (row[1 + a] * row[1 + a])
+                    s = X[i, a] - params[k, 4 + a]
+                    r2 += s * s / (params[k, 1 + a] * params[k, 1 + a])
                 g = depth * math.exp(-2.0 * r2)
                 for a in range(d):
-                    s = X[i, a] - row[4 + a]
-                    F[i, a] -= 4.0 * g * s / (row[1 + a] * row[1 + a])
+                    s = X[i, a] - params[k, 4 + a]
+                    F[i, a] -= 4.0 * g * s / (params[k, 1 + a] * params[k, 1 + a])
                 if with_energy:
                     energy[i] -= g
         elif code == CONSTANT_FORCE:
             for a in range(d):
-                fa = row[a]
+                fa = params[k, a]
                 for i in range(n):
                     F[i, a] += fa
                     if with_energy:

@@ -253,9 +253,9 @@ def fill_tile(k0, k1, ids, p0, n, n_comp, step0, nb, buf, stream):
     q_first = step0 >> 2
     q_end = (step0 + nb + 3) >> 2
     if n < SMALL_TILE:
+        # one lane per row (structure of arrays), so that the loop over blocks vectorises
         n_q = q_end - q_first
-        blocks = np.empty((n_q, 4))
-        flat = blocks.reshape(4 * n_q)
+        lanes = np.empty((4, n_q))
         offset = step0 - 4 * q_first
         for c in range(n_comp):
             cu = np.uint64(c)
@@ -263,12 +263,13 @@ def fill_tile(k0, k1, ids, p0, n, n_comp, step0, nb, buf, stream):
                 pi = ids[p0 + i]
                 for jq in range(n_q):
                     z0, z1, z2, z3 = normals4(k0, k1, np.uint64(q_first + jq), pi, cu, stream)
-                    blocks[jq, 0] = z0
-                    blocks[jq, 1] = z1
-                    blocks[jq, 2] = z2
-                    blocks[jq, 3] = z3
+                    lanes[0, jq] = z0
+                    lanes[1, jq] = z1
+                    lanes[2, jq] = z2
+                    lanes[3, jq] = z3
                 for s in range(nb):
-                    buf[s, i, c] = flat[offset + s]
+                    j = offset + s
+                    buf[s, i, c] = lanes[j & 3, j >> 2]
         return
     tmp = np.empty((4, n))
     for c in range(n_comp):

@@ -88,14 +88,16 @@ TILE = 64
 #: Steps of noise generated per block.
 BLOCK = 64
 
-#: The user terms (see :mod:`langsim.kernels.specialise`, which compiles copies
-#: of these kernels with its own ``extra_force`` and ``extra_coordinate``).
+#: Template globals. ``_forces``, ``_coordinate`` and ``advance`` below are the
+#: template of the kernel: :mod:`langsim.kernels.specialise` compiles a copy of
+#: them per scheme kind (``KIND``, so that numba prunes the other kinds' code)
+#: and per set of user terms (``extra_force``, ``extra_coordinate``, ``HAS_EXTRA``).
+KIND = RULE
 extra_force = no_extra
 extra_coordinate = no_coordinate
 HAS_EXTRA = False
 
 
-@njit(inline="always", cache=True)
 def _forces(codes, params, extra_params, X, t, F, Fx, energy):
     builtin_forces(codes, params, X, t, F, energy, False)
     if HAS_EXTRA:
@@ -125,9 +127,10 @@ def _any_nonfinite(bits):
 
 
 @njit(inline="always", cache=True)
-def _first_tap(row, c):
-    """(frame, tap, step count) of the first tap of a recorder at or after step count c."""
-    period, offset, n_taps, spacing = row[R_PERIOD], row[R_OFFSET], row[R_TAPS], row[R_SPACING]
+def _first_tap(rec_int, r, c):
+    """(frame, tap, step count) of the first tap of recorder r at or after step count c."""
+    period, offset = rec_int[r, R_PERIOD], rec_int[r, R_OFFSET]
+    n_taps, spacing = rec_int[r, R_TAPS], rec_int[r, R_SPACING]
     if c <= offset:
         return 0, 0, offset
     rel = c - offset
@@ -140,52 +143,58 @@ def _first_tap(row, c):
 
 
 @njit(inline="always", cache=True)
-def _tap(r, k, i, rec_int, rec_w, rec_acc, rec_out, src, p0, n_total):
-    """Apply tap i of frame k of recorder r to the tile's ``src`` (n, d); store a completed frame."""
-    row = rec_int[r]
-    n, d = src.shape
-    mode = row[R_MODE]
-    if mode == SUM:
+def _next_tap(rec_int, r, k, i, c):
+    """(frame, tap, step count) of recorder r's tap after tap i of frame k (at step count c)."""
+    if i + 1 < rec_int[r, R_TAPS]:
+        return k, i + 1, c + rec_int[r, R_SPACING]
+    return k + 1, 0, rec_int[r, R_OFFSET] + (k + 1) * rec_int[r, R_PERIOD]
+
+
+@njit(inline="always", cache=True)
+def _tap(r, k, i, rec_int, rec_w, rec_acc, rec_out, X, V, p0, n_total):
+    """Apply tap i of frame k of recorder r to the tile's X or V (n, d); store a completed frame."""
+    n, d = X.shape
+    velocities = rec_int[r, R_SOURCE] == SOURCE_VELOCITIES
+    if rec_int[r, R_MODE] == SUM:
         w = rec_w[r, i]
-        if i == 0:
-            for p in range(n):
-                for a in range(d):
-                    rec_acc[r, 0, p0 + p, a] = w * src[p, a]
-        else:
-            for p in range(n):
-                for a in range(d):
-                    rec_acc[r, 0, p0 + p, a] += w * src[p, a]
+        for p in range(n):
+            for a in range(d):
+                value = V[p, a] if velocities else X[p, a]
+                if i == 0:
+                    rec_acc[r, 0, p0 + p, a] = w * value
+                else:
+                    rec_acc[r, 0, p0 + p, a] += w * value
+        kept = 1
     else:
         for p in range(n):
             for a in range(d):
-                rec_acc[r, i, p0 + p, a] = src[p, a]
-    n_taps = row[R_TAPS]
-    if i == n_taps - 1:
-        f = k - row[R_FIRST]
-        if 0 <= f < row[R_COUNT]:
-            kept = 1 if mode == SUM else n_taps
+                rec_acc[r, i, p0 + p, a] = V[p, a] if velocities else X[p, a]
+        kept = rec_int[r, R_TAPS]
+    if i == rec_int[r, R_TAPS] - 1:
+        f = k - rec_int[r, R_FIRST]
+        if 0 <= f < rec_int[r, R_COUNT]:
             for j in range(kept):
-                base = row[R_BASE] + (f * kept + j) * n_total * d
+                base = rec_int[r, R_BASE] + (f * kept + j) * n_total * d
                 for p in range(n):
                     for a in range(d):
                         rec_out[base + (p0 + p) * d + a] = rec_acc[r, j, p0 + p, a]
 
 
-@njit(inline="always", cache=True)
-def _coordinate(stop_int, stop_real, extra_params, x_row):
+def _coordinate(stop_int, stop_real, extra_params, X, i):
+    """The stop coordinate of particle i of the tile."""
     kind = stop_int[0]
     if kind == STOP_AXIS:
-        return x_row[stop_int[1]]
+        return X[i, stop_int[1]]
     if kind == STOP_RADIUS:
         r2 = 0.0
-        for a in range(x_row.shape[0]):
-            s = x_row[a] - stop_real[2 + a]
+        for a in range(X.shape[1]):
+            s = X[i, a] - stop_real[2 + a]
             r2 += s * s
         return math.sqrt(r2)
-    return extra_coordinate(x_row, extra_params)
+    return extra_coordinate(X[i], extra_params)
 
 
-@njit(inline="always", cache=True)
+@njit(cache=True)
 def _bridge_hit(k0, k1, stream, pid, count, q_prev, q, below, above, diffusion, dt):
     """Brownian-bridge test between two steps that reached neither level: BELOW, ABOVE or RUNNING.
 
@@ -209,9 +218,8 @@ def _bridge_hit(k0, k1, stream, pid, count, q_prev, q, below, above, diffusion, 
     return RUNNING
 
 
-@njit(nogil=True, cache=True, error_model="numpy")
 def advance(x, v, ids, status, event_step, p_begin, p_end, step0, n_steps, dt,
-            k0, k1, stream, scheme, coef, letters, codes, params, extra_params,
+            k0, k1, stream, coef, letters, codes, params, extra_params,
             rec_int, rec_w, rec_acc, rec_out, include_start, stop_int, stop_real):
     """Advance particles ``p_begin .. p_end - 1`` from step count ``step0`` by ``n_steps``, in place.
 
@@ -229,9 +237,9 @@ def advance(x, v, ids, status, event_step, p_begin, p_end, step0, n_steps, dt,
         Step, s (time of step count c is c dt).
     k0, k1 : uint64
         Philox key. ``stream`` (uint64) is counter word 3.
-    scheme : int
-        RULE, SPLITTING, EXACT_OD or EXACT_UD; ``coef`` (rows, 8, d) its data
-        (see the module notes) and ``letters`` (int64) the splitting.
+    coef, letters
+        The scheme's data (rows, 8, d) (see the module notes) and the splitting
+        (int64) of the scheme ``KIND`` this copy of the kernel was made for.
     codes, params, extra_params
         Built-in force rows and the user terms' parameter vector.
     rec_int, rec_w, rec_acc, rec_out
@@ -245,23 +253,23 @@ def advance(x, v, ids, status, event_step, p_begin, p_end, step0, n_steps, dt,
     n_total, d = x.shape
     n_rec = rec_int.shape[0]
     n_letters = letters.shape[0]
-    if scheme == RULE:
+    if KIND == RULE:
         n_comp = d
         extra = 1 if coef[0, 2, 0] != 0.0 else 0
-    elif scheme == SPLITTING:
+    elif KIND == SPLITTING:
         n_o = 0
         for j in range(n_letters):
             if letters[j] == LETTER_O:
                 n_o += 1
         n_comp = d * n_o
         extra = 0
-    elif scheme == EXACT_OD:
+    elif KIND == EXACT_OD:
         n_comp = d
         extra = 0
     else:
         n_comp = 2 * d
         extra = 0
-    n_osc = coef.shape[0] - 2 if scheme >= EXACT_OD else 0
+    n_osc = coef.shape[0] - 2 if KIND >= EXACT_OD else 0
     stop_kind = stop_int[0]
     bridge = stop_int[2] != 0
     below = stop_real[0]
@@ -289,11 +297,11 @@ def advance(x, v, ids, status, event_step, p_begin, p_end, step0, n_steps, dt,
         c1 = np.empty((max(n_letters, 2), nd))
         c2 = np.empty((max(n_letters, 2), nd))
         where = np.empty((max(n_letters, 1), nd), dtype=np.int64)
-        if scheme == RULE:
+        if KIND == RULE:
             for e in range(nd):
                 c1[0, e] = coef[0, 0, e % d]
                 c2[0, e] = coef[0, 1, e % d]
-        elif scheme == SPLITTING:
+        elif KIND == SPLITTING:
             o_index = 0
             for j in range(n_letters):
                 for e in range(nd):
@@ -318,7 +326,7 @@ def advance(x, v, ids, status, event_step, p_begin, p_end, step0, n_steps, dt,
         q_prev = np.zeros(n)
         if stop_kind != STOP_NONE:
             for i in range(n):
-                q_prev[i] = _coordinate(stop_int, stop_real, extra_params, X[i])
+                q_prev[i] = _coordinate(stop_int, stop_real, extra_params, X, i)
         gx = np.zeros(d)
         gv = np.zeros(d)
         # recorders: the next tap of each
@@ -326,17 +334,11 @@ def advance(x, v, ids, status, event_step, p_begin, p_end, step0, n_steps, dt,
         tap_i = np.zeros(max(n_rec, 1), dtype=np.int64)
         tap_c = np.zeros(max(n_rec, 1), dtype=np.int64)
         for r in range(n_rec):
-            k, i, c = _first_tap(rec_int[r], step0 if include_start else step0 + 1)
+            k, i, c = _first_tap(rec_int, r, step0 if include_start else step0 + 1)
             tap_k[r], tap_i[r], tap_c[r] = k, i, c
             if include_start and c == step0:
-                src = X if rec_int[r, R_SOURCE] == SOURCE_POSITIONS else V
-                _tap(r, k, i, rec_int, rec_w, rec_acc, rec_out, src, p0, n_total)
-                row = rec_int[r]
-                if i + 1 < row[R_TAPS]:
-                    tap_i[r], tap_c[r] = i + 1, c + row[R_SPACING]
-                else:
-                    tap_k[r], tap_i[r] = k + 1, 0
-                    tap_c[r] = row[R_OFFSET] + (k + 1) * row[R_PERIOD]
+                _tap(r, k, i, rec_int, rec_w, rec_acc, rec_out, X, V, p0, n_total)
+                tap_k[r], tap_i[r], tap_c[r] = _next_tap(rec_int, r, k, i, c)
         force_valid = False
         done = 0
         while done < n_steps:
@@ -347,27 +349,25 @@ def advance(x, v, ids, status, event_step, p_begin, p_end, step0, n_steps, dt,
             fill_tile(k0, k1, ids, p0, n, n_comp, first, nb + extra, buf, stream)
             for s in range(nb):
                 step = first + s
-                xi = noise[s]
                 # ---------------------------------------------------- scheme step
-                if scheme == RULE:
+                # (2D indexing, no row views: a view per letter and step costs more
+                # than the arithmetic of a one-particle tile)
+                if KIND == RULE:
                     _forces(codes, params, extra_params, X, step * dt, F, Fx, energy)
-                    mob = c1[0]
-                    amp = c2[0]
                     if extra:
-                        xi1 = noise[s + 1]
                         for e in range(nd):
-                            xf[e] += live[e] * (mob[e] * ff[e] + amp[e] * (xi[e] + xi1[e]))
+                            xf[e] += live[e] * (c1[0, e] * ff[e]
+                                                + c2[0, e] * (noise[s, e] + noise[s + 1, e]))
                     else:
                         for e in range(nd):
-                            xf[e] += live[e] * (mob[e] * ff[e] + amp[e] * xi[e])
-                elif scheme == SPLITTING:
+                            xf[e] += live[e] * (c1[0, e] * ff[e] + c2[0, e] * noise[s, e])
+                elif KIND == SPLITTING:
                     elapsed = 0.0
                     for j in range(n_letters):
                         letter = letters[j]
-                        h = c1[j]
                         if letter == LETTER_A:
                             for e in range(nd):
-                                xf[e] += live[e] * (h[e] * vf[e])
+                                xf[e] += live[e] * (c1[j, e] * vf[e])
                             elapsed += coef[j, 2, 0]
                             force_valid = False
                         elif letter == LETTER_B:
@@ -376,12 +376,10 @@ def advance(x, v, ids, status, event_step, p_begin, p_end, step0, n_steps, dt,
                                         Fx, energy)
                                 force_valid = True
                             for e in range(nd):
-                                vf[e] += live[e] * (h[e] * ff[e])
+                                vf[e] += live[e] * (c1[j, e] * ff[e])
                         else:
-                            a_j = c2[j]
-                            wo = where[j]
                             for e in range(nd):
-                                new = h[e] * vf[e] + a_j[e] * xi[wo[e]]
+                                new = c1[j, e] * vf[e] + c2[j, e] * noise[s, where[j, e]]
                                 vf[e] = live[e] * new + dead[e] * vf[e]
                 else:
                     t = step * dt
@@ -395,18 +393,18 @@ def advance(x, v, ids, status, event_step, p_begin, p_end, step0, n_steps, dt,
                         for a in range(d):
                             gx[a] += coef[2 + o, 0, a] * sn + coef[2 + o, 1, a] * cs
                             gv[a] += coef[2 + o, 2, a] * sn + coef[2 + o, 3, a] * cs
-                    if scheme == EXACT_OD:
+                    if KIND == EXACT_OD:
                         for i in range(n):
                             for a in range(d):
                                 e = i * d + a
-                                new = coef[0, 0, a] * xf[e] + gx[a] + coef[0, 4, a] * xi[e]
+                                new = coef[0, 0, a] * xf[e] + gx[a] + coef[0, 4, a] * noise[s, e]
                                 xf[e] = live[e] * new + dead[e] * xf[e]
                     else:
                         for i in range(n):
                             for a in range(d):
                                 e = i * d + a
-                                z0 = xi[i * n_comp + a]
-                                z1 = xi[i * n_comp + d + a]
+                                z0 = noise[s, i * n_comp + a]
+                                z1 = noise[s, i * n_comp + d + a]
                                 nx = (coef[0, 0, a] * xf[e] + coef[0, 1, a] * vf[e] + gx[a]
                                       + coef[0, 4, a] * z0)
                                 nv = (coef[0, 2, a] * xf[e] + coef[0, 3, a] * vf[e] + gv[a]
@@ -436,7 +434,7 @@ def advance(x, v, ids, status, event_step, p_begin, p_end, step0, n_steps, dt,
                     for i in range(n):
                         if status[p0 + i] != RUNNING:
                             continue
-                        q = _coordinate(stop_int, stop_real, extra_params, X[i])
+                        q = _coordinate(stop_int, stop_real, extra_params, X, i)
                         hit = RUNNING
                         if q <= below:
                             hit = BELOW
@@ -456,15 +454,9 @@ def advance(x, v, ids, status, event_step, p_begin, p_end, step0, n_steps, dt,
                 # ---------------------------------------------------- recorders
                 for r in range(n_rec):
                     if count == tap_c[r]:
-                        src = X if rec_int[r, R_SOURCE] == SOURCE_POSITIONS else V
                         k, i = tap_k[r], tap_i[r]
-                        _tap(r, k, i, rec_int, rec_w, rec_acc, rec_out, src, p0, n_total)
-                        row = rec_int[r]
-                        if i + 1 < row[R_TAPS]:
-                            tap_i[r], tap_c[r] = i + 1, count + row[R_SPACING]
-                        else:
-                            tap_k[r], tap_i[r] = k + 1, 0
-                            tap_c[r] = row[R_OFFSET] + (k + 1) * row[R_PERIOD]
+                        _tap(r, k, i, rec_int, rec_w, rec_acc, rec_out, X, V, p0, n_total)
+                        tap_k[r], tap_i[r], tap_c[r] = _next_tap(rec_int, r, k, i, count)
             done += nb
         for i in range(n):
             if status[p0 + i] == NONFINITE:
