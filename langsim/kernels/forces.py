@@ -132,12 +132,12 @@ def builtin_forces(codes, params, X, t, F, energy, with_energy):
                         energy[i] -= fa * X[i, a]
         elif code == WALL:
             # U = strength exp(-gap/range), gap = side (x_axis - position) - radius
-            strength = row[0]
-            decay = row[1]
-            position = row[2]
-            ax = int(row[3])
-            side = row[4]
-            radius = row[5]
+            strength = params[k, 0]
+            decay = params[k, 1]
+            position = params[k, 2]
+            ax = int(params[k, 3])
+            side = params[k, 4]
+            radius = params[k, 5]
             for i in range(n):
                 u = strength * math.exp(-(side * (X[i, ax] - position) - radius) / decay)
                 F[i, ax] += side * u / decay
