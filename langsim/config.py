@@ -18,6 +18,7 @@ from . import gas as _gas
 from . import oscillators as _osc
 from . import potentials as _pot
 from . import schemes as _registry
+from . import stepcheck as _stepcheck
 from . import seeding, surface, units
 from .measurement import placement as _placement
 from .measurement import spec as _measurement_spec
@@ -112,6 +113,8 @@ class RunSpec:
     units: dict = field(default_factory=lambda: _osc.units_of(None))
     #: Spawn key of the run's SeedSequence (empty for a plain integer seed).
     spawn_key: tuple = ()
+    #: Curvature of the user terms per axis (N/m), measured numerically, or None.
+    user_curvature: tuple = None
 
     @property
     def kT(self):
@@ -131,9 +134,13 @@ class RunSpec:
         return self.dynamics.steps // self.output.every + 1
 
     def curvature(self):
-        """Sum over terms of each axis' largest curvature, N/m."""
+        """Sum over terms of each axis' largest curvature, N/m (user terms: measured
+        numerically, see :func:`langsim.stepcheck.user_curvature`)."""
         d = self.particles.dimensions
-        return sum((t.curvature(d) for t in self.terms), np.zeros(d))
+        total = sum((t.curvature(d) for t in self.terms), np.zeros(d))
+        if self.user_curvature is not None:
+            total = total + np.array(self.user_curvature)
+        return total
 
 
 def read(source):
@@ -196,6 +203,7 @@ def load(source):
                            medium, regime, errors)
     terms = _terms(top.raw("potential"), particles.dimensions, kT, errors, particles)
     dynamics = _dynamics(dyn_table, regime)
+    _check_linear(terms, dynamics, errors)
     particles = replace(particles, wall_friction=surface.wall_friction(terms, particles, medium,
                                                                        dynamics, errors))
     measurement = _measurement_spec.parse(top.raw("measurement"), errors, particles.dimensions,
@@ -205,8 +213,11 @@ def load(source):
     top.finish()
     errors.raise_if_any()
 
+    user_k = _stepcheck.user_curvature(terms, particles.dimensions, kT,
+                                       _start_point(particles, terms))
+    user_k = None if user_k is None else tuple(float(k) for k in user_k)
     provisional = RunSpec(seed, particles, medium, tuple(terms), dynamics, output, {},
-                          measurement=measurement, spawn_key=spawn_key)
+                          measurement=measurement, spawn_key=spawn_key, user_curvature=user_k)
     particles = replace(particles, burn_in=_burn_in(provisional))
     resolved = {
         "seed": seed,
@@ -246,11 +257,36 @@ def load(source):
     if spawn_key:
         resolved["spawn_key"] = list(spawn_key)
     spec = RunSpec(seed, particles, medium, tuple(terms), dynamics, output, resolved,
-                   measurement=measurement, units=_osc.units_of(oscillator), spawn_key=spawn_key)
+                   measurement=measurement, units=_osc.units_of(oscillator), spawn_key=spawn_key,
+                   user_curvature=user_k)
     _guard_step(spec, path)
     surface.fixed_height_warnings(spec, f"{path}: " if path else "")
     _osc.quantum_warnings(spec, path)
     return spec
+
+
+def _check_linear(terms, dynamics, errors):
+    """The exact scheme takes linear forces only."""
+    if not _registry.get(dynamics.scheme).linear_only:
+        return
+    for i, t in enumerate(terms):
+        if not isinstance(t, (_pot.Harmonic, _pot.ConstantForce)):
+            errors.add("[dynamics] scheme", dynamics.scheme,
+                       f"a scheme for this potential: 'exact' takes harmonic and constant-force "
+                       f"terms only, and potential[{i}] is {t.name!r} (use "
+                       f"{' or '.join(repr(s) for s in SCHEMES[dynamics.regime] if s != 'exact')})")
+            return
+
+
+def _start_point(particles, terms):
+    """Where a burn-in starts (see :func:`langsim.initial.initial_positions`)."""
+    if not isinstance(particles.initial, str) and hasattr(particles.initial, "shape"):
+        return np.atleast_2d(np.asarray(particles.initial, dtype=float))[0]
+    for t in terms:
+        center = getattr(t, "center", None)
+        if center is not None:
+            return np.array(t.static().center, dtype=float)
+    return np.zeros(particles.dimensions)
 
 
 def _spawn_key(value):
@@ -441,8 +477,17 @@ def _output(t, regime, dynamics):
 
 
 def _guard_step(spec, path):
-    """Refuse unstable steps, warn about inaccurate ones (ratio and a suggested dt)."""
+    """Refuse unstable steps, warn about inaccurate ones (ratio and a suggested dt).
+
+    The exact scheme has no stability limit. On axes where the forces are linear
+    the fidelity warning (:mod:`langsim.stepcheck`) says exactly how far the
+    recorded data are from the continuous process; elsewhere a curvature ratio
+    above the accuracy bound warns.
+    """
     dyn = spec.dynamics
+    where = f"{path}: " if path else ""
+    if _registry.get(dyn.scheme).kind == "exact":
+        return
     kappa = spec.curvature()
     gamma = np.array(spec.particles.friction)
     where = f"{path}: " if path else ""
@@ -469,7 +514,10 @@ def _guard_step(spec, path):
         raise ConfigError(f"{where}[dynamics] dt = {dyn.dt!r}: unstable, {what} = {r:.3g} on axis "
                           f"{worst} (limit {limit:g}); expected dt < {dyn.dt * limit / r:.3g} s, "
                           f"suggested {suggest:.3g} s (set allow_unstable = true to run anyway)")
-    if r > warn:
+    fidelity = _stepcheck.fidelity_warning(spec)
+    if fidelity is not None:
+        warnings.warn(where + fidelity, LangsimWarning, stacklevel=3)
+    if r > warn and worst not in _stepcheck.linear_axes(spec):
         warnings.warn(f"{where}[dynamics] dt = {dyn.dt!r} s gives {what} = {r:.3g} on axis {worst}: "
                       f"discretisation error is large (suggested dt = {suggest:.3g} s)",
                       LangsimWarning, stacklevel=3)
