@@ -22,6 +22,7 @@ from dataclasses import asdict, dataclass, field
 import numpy as np
 from scipy import optimize
 
+from . import schemes as _registry
 from . import theory
 from .analysis import (BoltzmannTest, EscapeRate, InsufficientDataError, LorentzianFit, axis_moments,
                        mean_msd, msd_at_lags)
@@ -351,6 +352,8 @@ def _row(quantity, measured, error, predicted, formula, source, unit="", z_thres
 def _scheme_bias(setup, curvature, a):
     """Rough relative bias of configurational statistics from the finite step (for gating)."""
     r = curvature * setup.dt / setup.friction[a]
+    if setup.scheme == "exact":
+        return 0.0
     if setup.scheme == "euler-maruyama":
         return r / 2.0
     if setup.scheme == "leimkuhler-matthews":
@@ -417,7 +420,7 @@ def check(traj, z_threshold=4.5, min_events=20, transient_factor=10.0):
                             f"(normal axis {_get(traj.config, 'medium', 'wall_axis')}): parallel Faxen, "
                             "perpendicular Brenner 1961; predictions use it")
     under = s.regime == "underdamped"
-    if under and s.scheme != "baoab":
+    if under and s.scheme not in ("baoab", "exact"):
         report.notes.append(f"underdamped scheme {s.scheme!r} has no exact prediction here; checks skipped")
         return report
     kw = dict(z_threshold=z_threshold)
@@ -430,7 +433,8 @@ def check(traj, z_threshold=4.5, min_events=20, transient_factor=10.0):
                 report.notes.append(f"axis {AXES[a]}: too few frames for a blocking error; equipartition skipped")
                 continue
             try:
-                pred = theory.scheme_position_variance(s.scheme, s.kT_axis[a], s.kappa[a], s.friction[a], s.dt, s.mass)
+                pred = _registry.get(s.scheme).position_variance(s.kT_axis[a], s.kappa[a], s.friction[a],
+                                                                 s.dt, s.mass)
             except ValueError as e:
                 report.notes.append(f"axis {AXES[a]}: {e}")
                 continue
@@ -446,9 +450,12 @@ def check(traj, z_threshold=4.5, min_events=20, transient_factor=10.0):
             if not np.isfinite(mv["variance_err"][a]):
                 report.notes.append(f"axis {AXES[a]}: too few frames for a velocity blocking error; skipped")
             elif kinds[a] in ("harmonic", "free"):
-                pred = theory.baoab_velocity_variance(s.kT_axis[a], s.mass, s.dt, s.kappa[a] if kinds[a] == "harmonic" else 0.0)
+                pred = _registry.get(s.scheme).velocity_variance(
+                    s.kT_axis[a], s.mass, s.dt, s.kappa[a] if kinds[a] == "harmonic" else 0.0)
+                form = ("kT/m (exact scheme)" if s.scheme == "exact" else
+                        "BAOAB full-step (kT/m)(1 - w0^2 dt^2/4)")
                 report.rows.append(_row(f"velocity variance {AXES[a]}", mv["variance"][a], mv["variance_err"][a],
-                                        pred, "BAOAB full-step (kT/m)(1 - w0^2 dt^2/4)",
+                                        pred, form,
                                         "Leimkuhler & Matthews 2013, AMRX; derived", "m^2/s^2", **kw))
             elif kinds[a] != "moving-trap":
                 report.rows.append(_row(f"velocity variance {AXES[a]}", mv["variance"][a], mv["variance_err"][a],
@@ -470,7 +477,12 @@ def check(traj, z_threshold=4.5, min_events=20, transient_factor=10.0):
             t = steps * s.dt
             for a in free:
                 D = s.kT_axis[a] / s.friction[a]
-                if s.scheme == "euler-maruyama":
+                if s.scheme == "exact" and not under:
+                    pred, form, src_ = 2 * D * t, "2 D t (exact scheme)", SRC_MSD
+                elif s.scheme == "exact":
+                    pred = float(theory.ornstein_furth_msd(t, s.kT_axis[a], s.mass, s.friction[a]))
+                    form, src_ = "Ornstein-Furth MSD (exact scheme)", SRC_OF
+                elif s.scheme == "euler-maruyama":
                     pred, form, src_ = 2 * D * t, "2 D t (exact for Euler-Maruyama)", SRC_MSD
                 elif s.scheme == "leimkuhler-matthews":
                     pred, form, src_ = float(theory.lm_free_msd(steps, D, s.dt)), "2 D (t - dt/2) (LM)", SRC_MSD
@@ -591,7 +603,7 @@ def _baoab_psd_rows(report, traj, s, a, start, kw):
     if 2.0 * f0 * s.frame_dt > 0.5:
         report.notes.append(f"axis {AXES[a]}: resonance above a quarter of the frame rate; PSD check skipped")
         return
-    if w0 * s.dt >= 2.0:
+    if w0 * s.dt >= 2.0 and s.scheme == "baoab":
         report.notes.append(f"axis {AXES[a]}: w0 dt >= 2, BAOAB unstable; PSD check skipped")
         return
     N = _segment(report, a, n, ring_f, 256)
@@ -605,11 +617,11 @@ def _baoab_psd_rows(report, traj, s, a, start, kw):
     i = int(np.argmax(sm))
     above = np.flatnonzero(sm >= sm[i] / 2.0)
     width = max(f[min(above[-1] + 1, f.size - 1)] - f[max(above[0] - 1, 0)], 2.0 * f[0])
-    model = baoab_model(s.dt, s.every, N)
+    model = baoab_model(s.dt, s.every, N, s.scheme)
     r = fit_psd_model(f, P, count, model, s.frame_dt, start=(f[i], max(f[i] / width, 0.1)),
                       tol=1e-8)
     (var, f0_m, Q_m), (var_e, f0_e, Q_e) = r["params"], r["errors"]
-    form = (f"ML fit up to 2 f0 of the exact expected periodogram of the BAOAB process (step {s.dt:.3g} s, "
+    form = (f"ML fit up to 2 f0 of the exact expected periodogram of the {s.scheme} process (step {s.dt:.3g} s, "
             f"every {s.every}, {N}-frame segments, leakage included) in physical f0, Q, kT/k")
     src = "BAOAB: Leimkuhler & Matthews 2013, AMRX; spectrum derived; ML fit as Berg-Sorensen & Flyvbjerg 2004"
     report.rows.append(_row(f"resonance frequency {AXES[a]}", f0_m, f0_e, f0, "f0 = sqrt(k/m)/(2 pi); " + form,
@@ -618,8 +630,8 @@ def _baoab_psd_rows(report, traj, s, a, start, kw):
     report.rows.append(_row(f"stiffness {AXES[a]} (PSD)", kT / var, kT / var * var_e / var, k,
                             "k = kT/variance (fitted peak area; exact for BAOAB positions); " + form, src,
                             "N/m", key=f"stiffness_psd.{AXES[a]}", **kw))
-    report._plot_data[f"psd {AXES[a]}"] = {"f": f, "P": P, "fit": baoab_psd(f, f0_m, Q_m, var, s.dt, s.every, N),
-                                          "predicted": baoab_psd(f, f0, Q, kT / k, s.dt, s.every, N),
+    report._plot_data[f"psd {AXES[a]}"] = {"f": f, "P": P, "fit": baoab_psd(f, f0_m, Q_m, var, s.dt, s.every, N, s.scheme),
+                                          "predicted": baoab_psd(f, f0, Q, kT / k, s.dt, s.every, N, s.scheme),
                                           "label": "fitted BAOAB spectrum"}
 
 

@@ -253,3 +253,31 @@ def test_exact_scheme_matches_the_ou_transition_density(regime):
     assert stats.kstest((x - mean) / math.sqrt(var), "norm").pvalue > 1e-4
     # wrong input: the same test refuses another process's mean
     assert stats.kstest((x - wrong) / math.sqrt(var), "norm").pvalue < 1e-4
+
+
+@pytest.mark.parametrize("regime", ["overdamped", "underdamped"])
+def test_exact_scheme_runs_pass_their_checks(regime):
+    """langsim check predicts the continuous process for scheme 'exact' (variance kT/k,
+    velocity variance kT/m, the frame-sampled spectrum) and the rows pass; the same data
+    checked as if Euler-Maruyama / BAOAB had made them fail (wrong input)."""
+    if regime == "overdamped":
+        k = 1e-6
+        cfg = {"seed": 21, "particles": {"count": 16, "friction": GAMMA},
+               "potential": [{"type": "harmonic", "stiffness": k}],
+               "dynamics": {"scheme": "exact", "dt": 0.5 * GAMMA / k, "steps": 20000}}
+    else:
+        k, m = 0.1, 2.5e-11                    # f0 = 10 kHz, Q = 10
+        g = math.sqrt(k * m) / 10
+        cfg = {"seed": 22, "particles": {"count": 16, "friction": g, "mass": m},
+               "potential": [{"type": "harmonic", "stiffness": k}],
+               "dynamics": {"regime": "underdamped", "scheme": "exact", "dt": 1.5 / math.sqrt(k / m),
+                            "steps": 16384}}
+    traj = langsim.run(cfg, progress=False)
+    report = langsim.check(traj)
+    keys = {r.key for r in report.rows if r.status != "info"}
+    assert report.passed, report.format_table()
+    assert "variance.x" in keys and any(k.startswith(("corner_frequency", "resonance")) for k in keys), keys
+    wrong = dict(traj.config, dynamics=dict(traj.config["dynamics"],
+                                            scheme="euler-maruyama" if regime == "overdamped" else "baoab"))
+    traj.config = wrong
+    assert not langsim.check(traj).passed

@@ -95,8 +95,9 @@ MODELS = {
     "aliased-oscillator": (("f0", "Q"), lambda f, p, dt, na: _oscillator_unit(f, p[0], p[1], dt, na)),
 }
 
-#: overdamped integrators whose recorded spectrum :func:`scheme_psd` gives
-SCHEMES = ("euler-maruyama", "leimkuhler-matthews")
+#: overdamped schemes whose recorded spectrum :func:`scheme_psd` gives ("exact": the
+#: continuous process sampled at the frames)
+SCHEMES = ("euler-maruyama", "leimkuhler-matthews", "exact")
 
 
 def scheme_psd(f, fc, diffusion, step_dt, every, scheme, segment_length=None):
@@ -126,10 +127,12 @@ def scheme_psd(f, fc, diffusion, step_dt, every, scheme, segment_length=None):
     r = 2.0 * math.pi * fc * step_dt
     if not (0.0 < r < 2.0):
         return np.full(f.shape, np.nan)
-    a = 1.0 - r
+    a = math.exp(-r) if scheme == "exact" else 1.0 - r
     c = a ** every
     var = diffusion / (2.0 * math.pi * fc)
-    if scheme == "euler-maruyama":
+    if scheme == "exact":           # the Ornstein-Uhlenbeck process at the frames: AR(1)
+        rho1 = c
+    elif scheme == "euler-maruyama":
         var /= 1.0 - r / 2.0
         rho1 = c
     else:
@@ -179,7 +182,17 @@ def _baoab_frame_map(f0, Q, step_dt, every):
     return np.linalg.matrix_power(M, int(every))
 
 
-def baoab_psd(f, f0, Q, variance, step_dt, every, segment_length=None):
+def _exact_frame_map(f0, Q, step_dt, every):
+    """Mean map over one frame of the continuous underdamped process: expm(A every dt),
+    A = [[0, 1], [-w0^2, -w0/Q]] (what scheme "exact" samples)."""
+    from scipy.linalg import expm
+    w0 = 2.0 * math.pi * f0
+    if not (f0 > 0 and Q > 0):
+        return None
+    return expm(np.array([[0.0, 1.0], [-w0 * w0, -w0 / Q]]) * (step_dt * every))
+
+
+def baoab_psd(f, f0, Q, variance, step_dt, every, segment_length=None, scheme="baoab"):
     """Two-sided spectrum of BAOAB's recorded positions in a harmonic well, m^2/Hz.
 
     For U = k q^2/2, BAOAB's full-step state s = (q, v) obeys
@@ -198,9 +211,11 @@ def baoab_psd(f, f0, Q, variance, step_dt, every, segment_length=None):
     = T var [1 + 2 Re (B (I - B)^-1 - B (I - B^N)(I - B)^-2 / N)_00]
     (Fejer-weighted matrix geometric series, derived; all factors commute),
     which includes leakage. Returns NaN where BAOAB is unstable (2 pi f0 dt >= 2).
+    ``scheme="exact"``: the same for the continuous process, whose stationary
+    covariance is diagonal too, with the frame map expm(A T).
     """
     f = np.asarray(f, dtype=float)
-    Af = _baoab_frame_map(f0, Q, step_dt, every)
+    Af = (_exact_frame_map if scheme == "exact" else _baoab_frame_map)(f0, Q, step_dt, every)
     if Af is None:
         return np.full(f.shape, np.nan)
     T = step_dt * every
@@ -226,10 +241,11 @@ def baoab_psd(f, f0, Q, variance, step_dt, every, segment_length=None):
     return T * variance * (1.0 + 2.0 * g00.real)
 
 
-def baoab_model(step_dt, every=1, segment_length=None):
+def baoab_model(step_dt, every=1, segment_length=None, scheme="baoab"):
     """(names, shape) model for :func:`fit_psd_model`: :func:`baoab_psd` with unit variance, parameters (f0, Q)."""
     step_dt, every = _model_steps(step_dt, every, segment_length)
-    return (("f0", "Q"), lambda f, p, dt, na: baoab_psd(f, p[0], p[1], 1.0, step_dt, every, segment_length))
+    return (("f0", "Q"), lambda f, p, dt, na: baoab_psd(f, p[0], p[1], 1.0, step_dt, every,
+                                                         segment_length, scheme))
 
 
 def _nll_profile(logp, f, P, n, shape):
