@@ -11,6 +11,7 @@ a sequence of ``dimensions`` values.
 """
 import ast
 import difflib
+import functools
 import math
 from dataclasses import dataclass, field, replace
 
@@ -512,7 +513,8 @@ def _caret(source, node_or_col, message):
 
 
 def parse_energy(source, parameters, dimensions):
-    """Parse an energy expression into a sympy expression, safely.
+    """Parse an energy expression into a sympy expression, safely (once per expression:
+    validation, kernel generation and the step guard share the result).
 
     The string is parsed by Python's ``ast`` and rebuilt node by node from a
     whitelist (numbers, the names x, y, z (up to ``dimensions``), t, the
@@ -524,6 +526,11 @@ def parse_energy(source, parameters, dimensions):
     Invalid
         With a message pointing at the offending part of the string.
     """
+    return _parse_energy(source, tuple(parameters), dimensions)
+
+
+@functools.lru_cache(maxsize=256)
+def _parse_energy(source, parameters, dimensions):
     import sympy
 
     coords = _COORDS[:dimensions]
