@@ -91,6 +91,8 @@ class CheckReport:
     start_frame: int = 0
     discarded_time: float = 0.0
     notes: list = field(default_factory=list)
+    #: What the figures draw, by panel (filled by :func:`check`; not part of the table or JSON).
+    plot_data: dict = field(default_factory=dict, repr=False, compare=False)
 
     @property
     def checked(self):
@@ -386,7 +388,6 @@ def check(traj, z_threshold=4.5, min_events=20, transient_factor=10.0):
     if len(src.shape) != 3 or src.shape[2] != s.d:
         raise ValueError(f"traj.positions must have shape (frames, particles, {s.d}), got {src.shape}")
     report = CheckReport()
-    report._plot_data = {}
     time = np.asarray(traj.time, dtype=float)
     if time.shape != (src.n_frames,):
         raise ValueError(f"traj.time must have shape ({src.n_frames},), got {time.shape}")
@@ -575,7 +576,7 @@ def _psd_rows(report, traj, s, a, start, kw):
                             "kappa = 2 pi gamma f_c with the configured friction", "common practice", "N/m",
                             info=True, note="same test as the corner frequency", key=f"stiffness_psd.{AXES[a]}", **kw))
     expected = theory.expected_periodogram(acov, s.frame_dt)[1:N // 2 + 1][:fit.frequencies_.size]
-    report._plot_data[f"psd {AXES[a]}"] = {"f": fit.frequencies_, "P": fit.psd_, "fit": fit.predict(fit.frequencies_),
+    report.plot_data[f"psd {AXES[a]}"] = {"f": fit.frequencies_, "P": fit.psd_, "fit": fit.predict(fit.frequencies_),
                                           "predicted": expected, "label": f"fitted {s.scheme} spectrum"}
 
 
@@ -630,7 +631,7 @@ def _baoab_psd_rows(report, traj, s, a, start, kw):
     report.rows.append(_row(f"stiffness {AXES[a]} (PSD)", kT / var, kT / var * var_e / var, k,
                             "k = kT/variance (fitted peak area; exact for BAOAB positions); " + form, src,
                             "N/m", key=f"stiffness_psd.{AXES[a]}", **kw))
-    report._plot_data[f"psd {AXES[a]}"] = {"f": f, "P": P, "fit": baoab_psd(f, f0_m, Q_m, var, s.dt, s.every, N, s.scheme),
+    report.plot_data[f"psd {AXES[a]}"] = {"f": f, "P": P, "fit": baoab_psd(f, f0_m, Q_m, var, s.dt, s.every, N, s.scheme),
                                           "predicted": baoab_psd(f, f0, Q, kT / k, s.dt, s.every, N, s.scheme),
                                           "label": "fitted BAOAB spectrum"}
 
@@ -672,7 +673,7 @@ def _well_rows(report, traj, s, start, min_events, kw):
                                f"(fail below {P_FAIL:g})", "Boltzmann distribution; Hotelling 1931", "",
                                f"scheme bias ~{bias:.2g} vs resolution {resolution:.2g}"
                                + (" (too coarse a step: information only)" if gated else "")))
-        report._plot_data["histogram"] = {"edges": bt.edges_, "observed": bt.observed_, "errors": bt.errors_,
+        report.plot_data["histogram"] = {"edges": bt.edges_, "observed": bt.observed_, "errors": bt.errors_,
                                           "probabilities": bt.probabilities_, "support": support,
                                           "U": U, "kT": kT}
     except InsufficientDataError as e:
@@ -682,7 +683,7 @@ def _well_rows(report, traj, s, start, min_events, kw):
     except ValueError as e:
         report.notes.append(f"escape rate skipped: {e}")
         return
-    report._plot_data["dwell"] = {"dwells": np.concatenate([er.dwell_a_, er.dwell_b_]), "rate": er.rate_}
+    report.plot_data["dwell"] = {"dwells": np.concatenate([er.dwell_a_, er.dwell_b_]), "rate": er.rate_}
     barrier = float(U(xt) - U(xa))
     if s.regime == "overdamped":
         for name, rate, err, x0, x1, cnt in (("A->B", er.rate_ab_, er.rate_ab_err_, xa, xb, er.dwell_a_.size),
@@ -728,9 +729,7 @@ def write_plots(traj, report, directory):
     if not isinstance(report, CheckReport):
         raise TypeError(f"report must be a CheckReport, got {type(report).__name__}")
     os.makedirs(directory, exist_ok=True)
-    data = getattr(report, "_plot_data", None)
-    if data is None:
-        data = check(traj)._plot_data
+    data = report.plot_data or check(traj).plot_data
     s = _Setup(traj.config)
     paths = []
     unit = (getattr(traj, "units", None) or {}).get("positions", "m")   # an oscillator's own: rad, C

@@ -237,7 +237,7 @@ def extend(report, traj, s, start, kw):
                                SRC_BOLTZMANN, "", "", key=f"height_histogram.{AXES[a]}"))
         x, p, cdf = boltzmann_weights(w.U, s.kT, support)
         shown = (support[0], float(np.interp(1.0 - 1e-4, cdf, x)))   # the visible part
-        report._plot_data["histogram"] = {
+        report.plot_data["histogram"] = {
             "edges": bt.edges_, "observed": bt.observed_, "errors": bt.errors_,
             "probabilities": bt.probabilities_, "support": shown, "U": w.U, "kT": s.kT, "scale": 1e6,
             "xlabel": f"{AXES[a]}: bead centre (um)", "ylabel": "density (1/um)",
