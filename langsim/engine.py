@@ -166,8 +166,10 @@ class StopCondition:
 
     Parameters
     ----------
-    coordinate : {"x", "y", "z", "radius"}
-        An axis, or the distance from ``center``.
+    coordinate : {"x", "y", "z", "radius"} or str
+        An axis, the distance from ``center``, or a formula in x, y, z (the
+        whitelist parser of energy expressions, e.g. ``"sqrt(x**2 + y**2)"``; it is
+        compiled into a kernel of its own, once per formula and machine).
     below, above : float
         Levels (m); a particle stops when its coordinate is <= ``below`` or
         >= ``above``. Either may be infinite.
@@ -193,9 +195,15 @@ class StopCondition:
         elif self.coordinate == "radius":
             kind, axis = _k.STOP_RADIUS, 0
             d_coord = float(np.mean(diffusion))
+        elif self.is_formula(dimensions):
+            # the bridge test of a formula uses the mean diffusion coefficient (an isotropic
+            # coordinate of unit gradient; approximate otherwise)
+            kind, axis = _k.STOP_USER, 0
+            d_coord = float(np.mean(diffusion))
         else:
             raise ValueError(f"stop coordinate = {self.coordinate!r}: expected one of "
-                             f"{', '.join(map(repr, tuple(axes) + ('radius',)))}")
+                             f"{', '.join(map(repr, tuple(axes) + ('radius',)))} or a formula "
+                             "in x, y, z")
         if not self.below < self.above:
             raise ValueError(f"stop levels below = {self.below!r}, above = {self.above!r}: "
                              "expected below < above")
@@ -203,6 +211,11 @@ class StopCondition:
         ints = np.array([kind, axis, int(bool(self.bridge)), 0], dtype=np.int64)
         reals = np.array([self.below, self.above, c[0], c[1], c[2], d_coord, 0.0, 0.0])
         return ints, reals
+
+
+    def is_formula(self, dimensions):
+        return isinstance(self.coordinate, str) and self.coordinate not in (
+            tuple("xyz"[:dimensions]) + ("radius",))
 
 
 _NO_STOP = (np.zeros(4, dtype=np.int64), np.zeros(8))
@@ -391,10 +404,11 @@ class Simulation:
         self.codes_static, self.params_static = _pot.builtin_rows(static, d)
         self.tables = _tables(spec, spec.terms)
         self.tables_static = _tables(spec, static)
-        user = _pot.user_terms(spec.terms, d)
-        self.extra_params = np.zeros(0) if user is None else user.parameters
+        self._user = _pot.user_terms(spec.terms, d)
+        self.extra_params = np.zeros(0) if self._user is None else self._user.parameters
         from .kernels.specialise import kernel_for
-        self.kernel = kernel_for(self.tables[0], user)
+        self.kernel = kernel_for(self.tables[0], self._user)
+        self._stop_kernels = {}
         self.key = seeding.kernel_key(spec.seed, spec.spawn_key)
         self.diffusion = spec.kT / np.array(spec.particles.friction, dtype=np.float64)
 
@@ -466,12 +480,14 @@ class Simulation:
                 np.uint64(state.key[0]), np.uint64(state.key[1]), stream,
                 coef, letters, codes, params, self.extra_params,
                 rec_int, rec_w, state.accumulators, rec_out, include_start, stop_int, stop_real)
+        kernel = self.kernel if stop is None or not stop.is_formula(d) else \
+            self._stop_kernel(stop.coordinate)
         blocks = self._blocks(n)
         if len(blocks) == 1:
-            self.kernel(*args, np.int64(0), np.int64(n), *rest)
+            kernel(*args, np.int64(0), np.int64(n), *rest)
         else:
             pool = _pool(len(blocks))
-            futures = [pool.submit(self.kernel, *args, np.int64(b0), np.int64(b1), *rest)
+            futures = [pool.submit(kernel, *args, np.int64(b0), np.int64(b1), *rest)
                        for b0, b1 in blocks]
             for f in futures:
                 f.result()
@@ -485,6 +501,18 @@ class Simulation:
         return Burst(changed[state.status[changed] != _k.NONFINITE],
                      changed[state.status[changed] == _k.NONFINITE],
                      frames, {name: v[0] for name, v in first.items()})
+
+    def _stop_kernel(self, formula):
+        """The kernel with a stop coordinate given as a formula (compiled once per formula)."""
+        if formula not in self._stop_kernels:
+            from .kernels.specialise import kernel_for
+            from .validation import ConfigError, Invalid
+            try:
+                source = _pot.coordinate_source(formula, self.spec.particles.dimensions)
+            except Invalid as exc:
+                raise ConfigError(f"stop coordinate = {formula!r}: expected {exc.expected}") from None
+            self._stop_kernels[formula] = kernel_for(self.tables[0], self._user, source)
+        return self._stop_kernels[formula]
 
     def _blocks(self, n):
         threads = self.threads or _cores()

@@ -841,6 +841,25 @@ def user_terms(terms, d):
     return UserTerms(source, np.array(values, dtype=np.float64), objects, key)
 
 
+def coordinate_source(formula, d):
+    """Source of ``extra_coordinate(pos, P) -> float`` for a stop coordinate given as a
+    formula in x, y, z (the same whitelist parser as energy expressions; no t, no parameters).
+
+    Raises
+    ------
+    Invalid
+        For a formula the parser refuses or one that uses t.
+    """
+    from sympy.printing.pycode import pycode
+    expr, coords, t = parse_energy(formula, {}, d)
+    if t in expr.free_symbols:
+        raise Invalid(f"a coordinate formula in {', '.join(_COORDS[:d])} (no t): {formula!r}")
+    lines = ["def extra_coordinate(pos, P):"]
+    lines += [f"    {c} = pos[{i}]" for i, c in enumerate(_COORDS[:d])]
+    lines.append(f"    return {pycode(expr, fully_qualified_modules=True)}")
+    return "\n".join(lines).replace("math.Abs", "abs") + "\n"
+
+
 def _njit(fn):
     from numba import njit
     return njit(fn)

@@ -281,3 +281,21 @@ def test_exact_scheme_runs_pass_their_checks(regime):
                                             scheme="euler-maruyama" if regime == "overdamped" else "baoab"))
     traj.config = wrong
     assert not langsim.check(traj).passed
+
+
+def test_stop_coordinate_given_as_a_formula():
+    """'sqrt(x**2 + y**2)' stops the same particles at the same steps as 'radius' about the
+    origin in a 2D run (the same coordinate written two ways)."""
+    sim = _sim(40, 2)
+    a, b = sim.initial_state(), sim.initial_state()
+    sim.advance(a, 300, stop=engine.StopCondition("radius", above=1.2e-7))
+    sim.advance(b, 300, stop=engine.StopCondition("sqrt(x**2 + y**2)", above=1.2e-7))
+    assert np.any(a.status == engine.State.ABOVE)
+    assert np.array_equal(a.status, b.status) and np.array_equal(a.event_step, b.event_step)
+    np.testing.assert_allclose(a.positions, b.positions, rtol=1e-12)
+    # wrong input: another formula stops others
+    c = sim.initial_state()
+    sim.advance(c, 300, stop=engine.StopCondition("Abs(x)", above=1.2e-7))
+    assert not np.array_equal(a.event_step, c.event_step)
+    with pytest.raises(langsim.validation.ConfigError, match="unknown name"):
+        sim.advance(sim.initial_state(), 1, stop=engine.StopCondition("sqrt(q)", above=1.0))

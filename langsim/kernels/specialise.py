@@ -55,15 +55,15 @@ def _kernel_source():
     return "\n\n".join(f"{deco}\n{inspect.getsource(f)}" for f, deco in _COPIED)
 
 
-def module_source(kind, user=None):
-    """The text of the kernel module for scheme ``kind`` and ``user`` terms (or None)."""
+def module_source(kind, user=None, coordinate=None):
+    """The text of the kernel module for scheme ``kind``, ``user`` terms (or None) and a stop
+    ``coordinate`` (source of ``extra_coordinate(pos, P)``, or None)."""
     from .. import cache
     lines = [f"KIND = {int(kind)}"]
     if user is None:
         lines.append("HAS_EXTRA = False\nfrom langsim.kernels.forces import no_extra as extra_force")
     else:
         lines.append("HAS_EXTRA = True\n\n\n@njit(cache=True)\n" + user.source)
-    coordinate = None if user is None else getattr(user, "coordinate_source", None)
     if coordinate:
         lines.append("\n\n@njit(cache=True)\n" + coordinate)
     else:
@@ -72,9 +72,10 @@ def module_source(kind, user=None):
     return f"# kernels {cache.fingerprint()}\n{_HEADER}\n{extra}\n\n\n{_kernel_source()}"
 
 
-def kernel_for(kind, user=None):
-    """The tile-loop kernel (``advance``) of scheme ``kind`` calling ``user``'s terms."""
-    source = module_source(kind, user)
+def kernel_for(kind, user=None, coordinate=None):
+    """The tile-loop kernel (``advance``) of scheme ``kind`` calling ``user``'s terms (and a
+    stop ``coordinate`` function's source)."""
+    source = module_source(kind, user, coordinate)
     digest = hashlib.sha256(source.encode()).hexdigest()
     if user is not None and user.key is None:
         tag = (digest,) + tuple(id(o) for o in user.objects.values())
