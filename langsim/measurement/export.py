@@ -101,7 +101,11 @@ def export_tiff(data, path, attrs=None, overwrite=False):
         raise ConfigError("the run has no images; expected a [measurement] table with pixel_size and "
                           "image_shape")
     _refuse_existing(path, overwrite)
-    import tifffile
+    try:
+        import tifffile
+    except ImportError:
+        raise ConfigError("writing TIFF needs the tifffile package; expected it installed "
+                          "(pip install \"langsim[tiff]\")") from None
     images = data["images"]
     n = len(images)
     meta = {"axes": "rows along y, columns along x", "frames": n}
