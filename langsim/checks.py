@@ -363,6 +363,20 @@ def _scheme_bias(setup, curvature, a):
     return curvature / setup.mass * setup.dt ** 2 / 4.0  # baoab
 
 
+def _note_short(report, moments, a, what):
+    """Say so when a run is too short for a trustworthy blocking error on this axis.
+
+    With the blocking level chosen by B^3 > 2 n g^2 (see analysis.stats.blocking),
+    the error's downward bias for an exponentially correlated series is about
+    g/B = (g / 2n)^(1/3) (derived from the criterion); above 10 % it is said.
+    """
+    bias = (moments["inefficiency"][a] / (2.0 * moments["n_frames"])) ** (1 / 3)
+    if bias > 0.1:
+        report.notes.append(f"axis {AXES[a]}: the {what} error bars may be low by about {100 * bias:.0f} % "
+                            f"(only {moments['n_frames'] / moments['inefficiency'][a]:.0f} independent "
+                            "samples); a longer run fixes it")
+
+
 def check(traj, z_threshold=4.5, min_events=20, transient_factor=10.0):
     """Check a trajectory against the predictions for its configuration.
 
@@ -439,6 +453,7 @@ def check(traj, z_threshold=4.5, min_events=20, transient_factor=10.0):
             except ValueError as e:
                 report.notes.append(f"axis {AXES[a]}: {e}")
                 continue
+            _note_short(report, m, a, "position")
             report.rows.append(_row(f"variance {AXES[a]}", m["variance"][a], m["variance_err"][a], pred,
                                     f"{s.scheme} stationary variance (kT/kappa at dt -> 0)", SRC_EQUI, "m^2", **kw))
             report.rows.append(_row(f"mean {AXES[a]}", m["mean"][a], m["mean_err"][a], s.center[a],
@@ -451,6 +466,7 @@ def check(traj, z_threshold=4.5, min_events=20, transient_factor=10.0):
             if not np.isfinite(mv["variance_err"][a]):
                 report.notes.append(f"axis {AXES[a]}: too few frames for a velocity blocking error; skipped")
             elif kinds[a] in ("harmonic", "free"):
+                _note_short(report, mv, a, "velocity")
                 pred = _registry.get(s.scheme).velocity_variance(
                     s.kT_axis[a], s.mass, s.dt, s.kappa[a] if kinds[a] == "harmonic" else 0.0)
                 form = ("kT/m (exact scheme)" if s.scheme == "exact" else

@@ -18,7 +18,6 @@ the chosen level, 18 blocks), and over 200 seeds the mean z^2 of the variance
 rows is 1.45: the printed error is about 10 % low and has Student-t tails.
 At 0.25 s it is calibrated, which is what is tested here.
 """
-import copy
 import math
 
 import numpy as np
@@ -76,20 +75,20 @@ def test_overdamped_harmonic_error_bars_cover(overdamped_reports):
                          "diffusion coefficient y (PSD)"})
 
 
+def cantilever(seed, duration):
+    """configs/cantilever.toml (k = 0.1 N/m, f0 = 10 kHz, Q = 10), shortened to ``duration`` s."""
+    return {"seed": seed,
+            "particles": {"count": 1, "dimensions": 1, "mass": 2.53303e-11, "friction": 1.59155e-7},
+            "medium": {"temperature": 295.15},
+            "potential": [{"type": "harmonic", "stiffness": 0.1}],
+            "dynamics": {"regime": "underdamped", "scheme": "baoab", "dt": 1e-6, "duration": duration},
+            "output": {"every": 5, "velocities": True}}
+
+
 @pytest.fixture(scope="module")
 def underdamped_reports():
-    # configs/cantilever.toml (k = 0.1 N/m, f0 = 10 kHz, Q = 10), 0.25 s instead of 2 s (2500 energy relaxation times 2m/gamma; see the note on short runs below)
-    cfg = {"particles": {"count": 1, "dimensions": 1, "mass": 2.53303e-11, "friction": 1.59155e-7},
-           "medium": {"temperature": 295.15},
-           "potential": [{"type": "harmonic", "stiffness": 0.1}],
-           "dynamics": {"regime": "underdamped", "scheme": "baoab", "dt": 1e-6, "duration": 0.25},
-           "output": {"every": 5, "velocities": True}}
-    reps = []
-    for i in range(200):
-        c = copy.deepcopy(cfg)
-        c["seed"] = 500 + i
-        reps.append(check(langsim.run(c, progress=False)))
-    return reps
+    # 0.25 s: 2500 energy relaxation times 2m/gamma (see the note on short runs above)
+    return [check(langsim.run(cantilever(500 + i, 0.25), progress=False)) for i in range(200)]
 
 
 def test_underdamped_oscillator_error_bars_cover(underdamped_reports):
@@ -99,3 +98,12 @@ def test_underdamped_oscillator_error_bars_cover(underdamped_reports):
                                                  "quality factor"))}
     assert len(expected) >= 4, sorted(names)
     assert_coverage(zs, expected)
+
+
+def test_short_runs_are_told_their_error_bars_may_be_low(underdamped_reports):
+    # the 0.25 s runs are long enough: (g / 2n)^(1/3) < 10 % (g ~ 50 frames, n ~ 5e4 frames)
+    assert not any("may be low" in n for n in underdamped_reports[0].notes)
+    cfg = cantilever(3, 0.05)
+    notes = check(langsim.run(cfg, progress=False)).notes
+    assert any("position error bars may be low" in n for n in notes), notes
+    assert any("velocity error bars may be low" in n for n in notes), notes
