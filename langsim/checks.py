@@ -22,6 +22,7 @@ from dataclasses import asdict, dataclass, field
 import numpy as np
 from scipy import optimize
 
+from . import potentials as _pot
 from . import schemes as _registry
 from . import theory
 from .analysis import (BoltzmannTest, EscapeRate, InsufficientDataError, LorentzianFit, axis_moments,
@@ -29,6 +30,7 @@ from .analysis import (BoltzmannTest, EscapeRate, InsufficientDataError, Lorentz
 from .analysis.spectra import SCHEMES, baoab_model, baoab_psd, segment_averaged_periodogram, fit_psd_model
 from .analysis.stats import FrameSource
 from .units import k_B
+from .validation import Errors, Table
 
 __all__ = ["Row", "CheckReport", "check", "write_plots"]
 
@@ -289,6 +291,8 @@ class _Setup:
                 raise ValueError(f"unknown potential type {kind!r} in traj.config['potential']")
         with np.errstate(invalid="ignore", divide="ignore"):
             self.center = np.where(self.kappa > 0, (kc + self.force) / self.kappa, 0.0)
+        if self.well is not None and not self.coupled:
+            self.axis_terms = _separable_terms(_get(cfg, "potential", default=[]), d, self.kT)
 
     def axis_kind(self, a):
         if self.nonlinear[a]:
@@ -309,32 +313,28 @@ class _Setup:
         return 1.0 / rate if rate > 0 else 0.0
 
     def axis_potential(self):
-        """1D potential along the double-well axis (J), or None when not separable."""
+        """1D potential along the double-well axis (J), or None when not separable.
+
+        Built from the terms' own energies (:meth:`langsim.potentials.Term.energy_at`),
+        the functions the kernels compute; other axes add only a constant.
+        """
         if self.well is None or self.coupled:
             return None
-        a, dU, L, c = self.well
-        dw = theory.quartic_double_well(dU, L, c)
-        terms = []
-        for t in self.on_axis:
-            if t[0] == "harmonic" and t[1][a] != 0:
-                terms.append(("h", t[1][a], t[2][a]))
-            elif t[0] == "periodic" and t[1] == a:
-                p = t[2]
-                terms.append(("p", float(p["barrier"]), float(p["period"]), float(p.get("tilt", 0.0)),
-                              _vec(p.get("center"), self.d, "periodic.center")[a]))
-        F = self.force[a]
+        return _pot.axis_profile(self.axis_terms, self.well[0], self.d)
 
-        def U(x):
-            x = np.asarray(x, dtype=float)
-            u = dw(x) - F * x
-            for t in terms:
-                if t[0] == "h":
-                    u = u + 0.5 * t[1] * (x - t[2]) ** 2
-                else:
-                    s = x - t[4]
-                    u = u + 0.5 * t[1] * (1.0 - np.cos(2.0 * math.pi * s / t[2])) - t[3] * s
-            return u
-        return U
+
+def _separable_terms(entries, d, kT):
+    """Term objects of a resolved config's separable entries (gravity as its resolved force)."""
+    errors = Errors("traj.config")
+    terms = []
+    for i, entry in enumerate(entries):
+        kind = entry.get("type")
+        if kind == "gravity":
+            entry, kind = {"type": "constant-force", "force": entry["force"]}, "constant-force"
+        if kind in ("harmonic", "double-well", "periodic", "constant-force"):
+            terms.append(_pot.TERMS[kind].from_table(Table(errors, f"potential[{i}]", entry), d, kT))
+    errors.raise_if_any()
+    return terms
 
 
 def _z(measured, error, predicted):
