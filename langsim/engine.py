@@ -407,7 +407,7 @@ class Simulation:
         self._user = _pot.user_terms(spec.terms, d)
         self.extra_params = np.zeros(0) if self._user is None else self._user.parameters
         from .kernels.specialise import kernel_for
-        self.kernel = kernel_for(self.tables[0], self._user)
+        self.kernel = kernel_for(self.tables[0], self._user)    # no stop stage: what run() needs
         self._stop_kernels = {}
         self.key = seeding.kernel_key(spec.seed, spec.spawn_key)
         self.diffusion = spec.kT / np.array(spec.particles.friction, dtype=np.float64)
@@ -480,8 +480,8 @@ class Simulation:
                 np.uint64(state.key[0]), np.uint64(state.key[1]), stream,
                 coef, letters, codes, params, self.extra_params,
                 rec_int, rec_w, state.accumulators, rec_out, include_start, stop_int, stop_real)
-        kernel = self.kernel if stop is None or not stop.is_formula(d) else \
-            self._stop_kernel(stop.coordinate)
+        kernel = self.kernel if stop is None else \
+            self._stop_kernel(stop.coordinate if stop.is_formula(d) else None)
         blocks = self._blocks(n)
         if len(blocks) == 1:
             kernel(*args, np.int64(0), np.int64(n), *rest)
@@ -502,16 +502,19 @@ class Simulation:
                      changed[state.status[changed] == _k.NONFINITE],
                      frames, {name: v[0] for name, v in first.items()})
 
-    def _stop_kernel(self, formula):
-        """The kernel with a stop coordinate given as a formula (compiled once per formula)."""
+    def _stop_kernel(self, formula=None):
+        """The kernel with the stop stage (and a stop coordinate given as a formula), compiled
+        (or loaded) on first use, once per formula."""
         if formula not in self._stop_kernels:
             from .kernels.specialise import kernel_for
-            from .validation import ConfigError, Invalid
-            try:
-                source = _pot.coordinate_source(formula, self.spec.particles.dimensions)
-            except Invalid as exc:
-                raise ConfigError(f"stop coordinate = {formula!r}: expected {exc.expected}") from None
-            self._stop_kernels[formula] = kernel_for(self.tables[0], self._user, source)
+            source = None
+            if formula is not None:
+                from .validation import ConfigError, Invalid
+                try:
+                    source = _pot.coordinate_source(formula, self.spec.particles.dimensions)
+                except Invalid as exc:
+                    raise ConfigError(f"stop coordinate = {formula!r}: expected {exc.expected}") from None
+            self._stop_kernels[formula] = kernel_for(self.tables[0], self._user, True, source)
         return self._stop_kernels[formula]
 
     def _blocks(self, n):

@@ -252,41 +252,41 @@ def fill_tile(k0, k1, ids, p0, n, n_comp, step0, nb, buf, stream):
     """
     q_first = step0 >> 2
     q_end = (step0 + nb + 3) >> 2
-    if n < SMALL_TILE:
-        # one lane per row (structure of arrays), so that the loop over blocks vectorises
-        n_q = q_end - q_first
-        lanes = np.empty((4, n_q))
-        offset = step0 - 4 * q_first
-        for c in range(n_comp):
-            cu = np.uint64(c)
-            for i in range(n):
-                pi = ids[p0 + i]
-                for jq in range(n_q):
-                    z0, z1, z2, z3 = normals4(k0, k1, np.uint64(q_first + jq), pi, cu, stream)
-                    lanes[0, jq] = z0
-                    lanes[1, jq] = z1
-                    lanes[2, jq] = z2
-                    lanes[3, jq] = z3
-                for s in range(nb):
-                    j = offset + s
-                    buf[s, i, c] = lanes[j & 3, j >> 2]
-        return
-    tmp = np.empty((4, n))
+    n_q = q_end - q_first
+    small = n < SMALL_TILE
+    # one row of Philox counters at a time: blocks of steps of one particle (small tiles),
+    # or one block of steps of every particle; one loop (inlined once) makes the variates
+    n_rows, m = (n, n_q) if small else (n_q, n)
+    ctr = np.empty((2, m), dtype=np.uint64)
+    lanes = np.empty((4, m))
+    offset = step0 - 4 * q_first
     for c in range(n_comp):
         cu = np.uint64(c)
-        for q in range(q_first, q_end):
-            qu = np.uint64(q)
-            for i in range(n):
-                z0, z1, z2, z3 = normals4(k0, k1, qu, ids[p0 + i], cu, stream)
-                tmp[0, i] = z0
-                tmp[1, i] = z1
-                tmp[2, i] = z2
-                tmp[3, i] = z3
-            first = 4 * q - step0
-            for lane in range(max(0, -first), min(4, nb - first)):
-                s = first + lane
-                for i in range(n):
-                    buf[s, i, c] = tmp[lane, i]
+        for row in range(n_rows):
+            if small:
+                for j in range(m):
+                    ctr[0, j] = np.uint64(q_first + j)
+                    ctr[1, j] = ids[p0 + row]
+            else:
+                for j in range(m):
+                    ctr[0, j] = np.uint64(q_first + row)
+                    ctr[1, j] = ids[p0 + j]
+            for j in range(m):
+                z0, z1, z2, z3 = normals4(k0, k1, ctr[0, j], ctr[1, j], cu, stream)
+                lanes[0, j] = z0
+                lanes[1, j] = z1
+                lanes[2, j] = z2
+                lanes[3, j] = z3
+            if small:
+                for s in range(nb):
+                    j = offset + s
+                    buf[s, row, c] = lanes[j & 3, j >> 2]
+            else:
+                first = 4 * row - offset
+                for lane in range(max(0, -first), min(4, nb - first)):
+                    s = first + lane
+                    for i in range(n):
+                        buf[s, i, c] = lanes[lane, i]
 
 
 @njit(cache=True)

@@ -96,6 +96,7 @@ KIND = RULE
 extra_force = no_extra
 extra_coordinate = no_coordinate
 HAS_EXTRA = False
+STOPS = True
 
 
 def _forces(codes, params, extra_params, X, t, F, Fx, energy):
@@ -150,7 +151,7 @@ def _next_tap(rec_int, r, k, i, c):
     return k + 1, 0, rec_int[r, R_OFFSET] + (k + 1) * rec_int[r, R_PERIOD]
 
 
-@njit(inline="always", cache=True)
+@njit(cache=True, nogil=True)
 def _tap(r, k, i, rec_int, rec_w, rec_acc, rec_out, X, V, p0, n_total):
     """Apply tap i of frame k of recorder r to the tile's X or V (n, d); store a completed frame."""
     n, d = X.shape
@@ -178,6 +179,33 @@ def _tap(r, k, i, rec_int, rec_w, rec_acc, rec_out, X, V, p0, n_total):
                 for p in range(n):
                     for a in range(d):
                         rec_out[base + (p0 + p) * d + a] = rec_acc[r, j, p0 + p, a]
+
+
+@njit(cache=True, nogil=True)
+def _mark_nonfinite(X, V, live, dead, status, event_step, p0, count):
+    """Mark the tile's particles with a non-finite coordinate as ``NONFINITE`` at step count
+    ``count``, zero their state and mask them; returns how many were running.
+
+    A cold path, compiled once and called (not inlined) from the tile loop.
+    """
+    n, d = X.shape
+    newly = 0
+    for i in range(n):
+        bad = False
+        for a in range(d):
+            if not (math.isfinite(X[i, a]) and math.isfinite(V[i, a])):
+                bad = True
+        if bad and status[p0 + i] == RUNNING:
+            status[p0 + i] = NONFINITE
+            event_step[p0 + i] = count
+            newly += 1
+        if bad:
+            for a in range(d):
+                live[i * d + a] = 0.0
+                dead[i * d + a] = 1.0
+                X[i, a] = 0.0
+                V[i, a] = 0.0
+    return newly
 
 
 def _coordinate(stop_int, stop_real, extra_params, X, i):
@@ -324,7 +352,7 @@ def advance(x, v, ids, status, event_step, p_begin, p_end, step0, n_steps, dt,
             else:
                 n_live += 1
         q_prev = np.zeros(n)
-        if stop_kind != STOP_NONE:
+        if STOPS and stop_kind != STOP_NONE:
             for i in range(n):
                 q_prev[i] = _coordinate(stop_int, stop_real, extra_params, X, i)
         gx = np.zeros(d)
@@ -414,23 +442,9 @@ def advance(x, v, ids, status, event_step, p_begin, p_end, step0, n_steps, dt,
                 count = step + 1
                 # ---------------------------------------------------- status
                 if _any_nonfinite(xbits) or _any_nonfinite(vbits):
-                    for i in range(n):
-                        bad = False
-                        for a in range(d):
-                            if not (math.isfinite(X[i, a]) and math.isfinite(V[i, a])):
-                                bad = True
-                        if bad and status[p0 + i] == RUNNING:
-                            status[p0 + i] = NONFINITE
-                            event_step[p0 + i] = count
-                            n_live -= 1
-                        if bad:
-                            for a in range(d):
-                                live[i * d + a] = 0.0
-                                dead[i * d + a] = 1.0
-                                X[i, a] = 0.0
-                                V[i, a] = 0.0
+                    n_live -= _mark_nonfinite(X, V, live, dead, status, event_step, p0, count)
                     force_valid = False
-                if stop_kind != STOP_NONE:
+                if STOPS and stop_kind != STOP_NONE:
                     for i in range(n):
                         if status[p0 + i] != RUNNING:
                             continue
@@ -463,6 +477,8 @@ def advance(x, v, ids, status, event_step, p_begin, p_end, step0, n_steps, dt,
                 for a in range(d):
                     X[i, a] = math.nan
                     V[i, a] = math.nan
-        x[p0:p0 + n] = X
-        v[p0:p0 + n] = V
+        for i in range(n):      # element loops: a slice assignment compiles a shape-error message
+            for a in range(d):
+                x[p0 + i, a] = X[i, a]
+                v[p0 + i, a] = V[i, a]
         p0 += n

@@ -40,7 +40,8 @@ from numba import njit
 from langsim.kernels.forces import builtin_forces
 from langsim.kernels.noise import fill_tile
 from langsim.kernels import schemes as _stages
-from langsim.kernels.schemes import _any_nonfinite, _bridge_hit, _first_tap, _next_tap, _tap
+from langsim.kernels.schemes import (_any_nonfinite, _bridge_hit, _first_tap, _mark_nonfinite,
+                                     _next_tap, _tap)
 
 globals().update({k: v for k, v in vars(_stages).items() if k.isupper()})   # stage constants
 '''
@@ -55,11 +56,12 @@ def _kernel_source():
     return "\n\n".join(f"{deco}\n{inspect.getsource(f)}" for f, deco in _COPIED)
 
 
-def module_source(kind, user=None, coordinate=None):
-    """The text of the kernel module for scheme ``kind``, ``user`` terms (or None) and a stop
-    ``coordinate`` (source of ``extra_coordinate(pos, P)``, or None)."""
+def module_source(kind, user=None, stops=False, coordinate=None):
+    """The text of the kernel module for scheme ``kind``, ``user`` terms (or None), with the
+    stop stage when ``stops`` and a stop ``coordinate`` (source of
+    ``extra_coordinate(pos, P)``, or None; implies ``stops``)."""
     from .. import cache
-    lines = [f"KIND = {int(kind)}"]
+    lines = [f"KIND = {int(kind)}\nSTOPS = {bool(stops or coordinate)}"]
     if user is None:
         lines.append("HAS_EXTRA = False\nfrom langsim.kernels.forces import no_extra as extra_force")
     else:
@@ -72,10 +74,14 @@ def module_source(kind, user=None, coordinate=None):
     return f"# kernels {cache.fingerprint()}\n{_HEADER}\n{extra}\n\n\n{_kernel_source()}"
 
 
-def kernel_for(kind, user=None, coordinate=None):
-    """The tile-loop kernel (``advance``) of scheme ``kind`` calling ``user``'s terms (and a
-    stop ``coordinate`` function's source)."""
-    source = module_source(kind, user, coordinate)
+def kernel_for(kind, user=None, stops=False, coordinate=None):
+    """The tile-loop kernel (``advance``) of scheme ``kind`` calling ``user``'s terms.
+
+    ``stops``: with the stop-condition stage (coordinates, levels, Brownian-bridge test);
+    without it that code is not compiled, and the stop arrays are ignored. ``coordinate``:
+    source of a stop coordinate function (a formula), which implies the stop stage.
+    """
+    source = module_source(kind, user, stops, coordinate)
     digest = hashlib.sha256(source.encode()).hexdigest()
     if user is not None and user.key is None:
         tag = (digest,) + tuple(id(o) for o in user.objects.values())
