@@ -1,16 +1,19 @@
 """Cost of the dynamics noise, in ns per variate, and of whole 1D steps.
 
-Rows (one thread, best of ``--repeat`` timings):
+Rows (one thread, best of ``--repeat`` timings in process CPU time, so that other
+processes on a shared machine do not count):
 
 * ``numpy floor``: ``Generator.standard_normal(out=buf)`` into 100,000 doubles;
 * ``legacy fill_tile``: the first implementation (scalar Philox and libm
   Box-Muller), loaded from git commit ``LEGACY_COMMIT`` when available;
 * ``fill_tile``: the current kernel, 64 particles x 64 steps per call;
+* ``fill_tile, 1 particle``: the same for a tile of one particle (variates
+  vectorised over blocks of steps);
 * ``philox words``: Philox4x64-10 alone, one word per variate;
 * ``box_muller``: the polynomial transform alone, on stored words;
 * ``libm box_muller``: the same transform with math.log/sqrt/cos/sin;
-* ``BAOAB`` / ``Euler-Maruyama``: ``advance_underdamped`` / ``advance_overdamped``
-  with one harmonic term, 100,000 particles in 1D, in ns per particle-step.
+* ``BAOAB`` / ``Euler-Maruyama``: :meth:`langsim.engine.Simulation.advance` with
+  one harmonic term, ``--particles`` particles in 1D, in ns per particle-step.
 
 Usage: ``python benchmarks/bench_noise.py [--repeat 5] [--steps 1000]``. The
 table is printed and written to ``benchmarks/results/noise.json``.
@@ -31,7 +34,6 @@ import numpy as np
 from numba import njit
 
 from langsim.kernels import noise, schemes
-from langsim.kernels.forces import N_SLOTS
 
 LEGACY_COMMIT = "78f9ce6"
 HERE = os.path.dirname(os.path.abspath(__file__))
@@ -42,9 +44,9 @@ def best(fn, repeat):
     fn()
     times = []
     for _ in range(repeat):
-        t = time.perf_counter()
+        t = time.process_time()
         fn()
-        times.append(time.perf_counter() - t)
+        times.append(time.process_time() - t)
     return min(times)
 
 
@@ -64,13 +66,22 @@ def legacy_module():
     return mod
 
 
-def tile_runner(fill):
+def legacy_runner(fill):
+    """Calls of the legacy ``fill_tile(k0, k1, p0, n, n_comp, step0, nb, buf)``."""
     @njit
     def run(k0, k1, n_tiles, buf):
         nb, n, n_comp = buf.shape
         for t in range(n_tiles):
             fill(k0, k1, t * n, n, n_comp, 0, nb, buf)
     return run
+
+
+@njit
+def _tile_runner(k0, k1, n_tiles, buf, ids):
+    """Calls of the current ``fill_tile`` (particle ids, dynamics stream)."""
+    nb, n, n_comp = buf.shape
+    for t in range(n_tiles):
+        noise.fill_tile(k0, k1, ids, t * n, n, n_comp, 0, nb, buf, np.uint64(0))
 
 
 @njit(error_model="numpy")
@@ -106,41 +117,19 @@ def _transform_libm(n_rep, words, z):
             z[1, i] = rad * math.sin(a)
 
 
-def harmonic(d=1):
-    codes = np.array([0], dtype=np.int64)
-    params = np.zeros((1, N_SLOTS))
-    params[0, :d] = 1.0
-    return codes, params
-
-
 def step_costs(n_particles, n_steps, repeat):
-    """ns per particle-step of BAOAB and Euler-Maruyama, 1D harmonic trap."""
-    d = 1
-    codes, params = harmonic(d)
-    friction = np.ones(d)
-    letters = np.array([1, 0, 2, 0, 1], dtype=np.int64)
-    fractions = np.array([0.5, 0.5, 1.0, 0.5, 0.5])
-    n_tiles = (n_particles + schemes.TILE - 1) // schemes.TILE
-    status = np.zeros((n_tiles, 3), dtype=np.int64)
-    every = n_steps
-    x = np.zeros((n_particles, d))
-    v = np.zeros((n_particles, d))
-    out_x = np.empty((1, n_particles, d))
-    out_v = np.empty_like(out_x)
-    k0, k1 = KEY
-    no_user_params = np.zeros(0)
-
-    def under():
-        schemes.advance_underdamped(x, v, 0, n_steps, 0.1, 1.0, 1.0, friction, friction, letters,
-                                    fractions, k0, k1, codes, params, no_user_params, every,
-                                    out_x, out_v, True, status)
-
-    def over():
-        schemes.advance_overdamped(x, 0, n_steps, 0.1, 1.0, friction, False, k0, k1,
-                                   codes, params, no_user_params, every, out_x, status)
-
-    scale = 1e9 / (n_particles * n_steps)
-    return best(under, repeat) * scale, best(over, repeat) * scale
+    """ns per particle-step of BAOAB and Euler-Maruyama, 1D harmonic trap, one thread."""
+    from langsim import engine
+    costs = []
+    for regime in ("underdamped", "overdamped"):
+        cfg = {"seed": 1, "particles": {"count": n_particles, "friction": 1.0, "mass": 1.0},
+               "potential": [{"type": "harmonic", "stiffness": 1.0}],
+               "dynamics": {"regime": regime, "dt": 0.1, "steps": n_steps}}
+        sim = engine.Simulation(cfg, threads=1)
+        state = sim.initial_state()
+        costs.append(best(lambda: sim.advance(state, n_steps), repeat)
+                     * 1e9 / (n_particles * n_steps))
+    return tuple(costs)
 
 
 def main(argv=None):
@@ -149,7 +138,6 @@ def main(argv=None):
     ap.add_argument("--steps", type=int, default=1000)
     ap.add_argument("--particles", type=int, default=100_000)
     args = ap.parse_args(argv)
-    numba.set_num_threads(1)
     k0, k1 = KEY
     rows = {}
 
@@ -164,10 +152,14 @@ def main(argv=None):
     per_tile = 1e9 / (n_tiles * buf.size)
     legacy = legacy_module()
     if legacy is not None:
-        run = tile_runner(legacy.fill_tile)
+        run = legacy_runner(legacy.fill_tile)
         rows["legacy fill_tile"] = best(lambda: run(k0, k1, n_tiles, buf), args.repeat) * per_tile
-    run = tile_runner(noise.fill_tile)
-    rows["fill_tile"] = best(lambda: run(k0, k1, n_tiles * 4, buf), args.repeat) * per_tile / 4
+    ids = np.arange(4 * n_tiles * schemes.TILE, dtype=np.uint64)
+    rows["fill_tile"] = best(lambda: _tile_runner(k0, k1, n_tiles * 4, buf, ids),
+                             args.repeat) * per_tile / 4
+    one = np.empty((schemes.BLOCK, 1, 1))
+    rows["fill_tile, 1 particle"] = best(lambda: _tile_runner(k0, k1, 100_000, one, ids),
+                                         args.repeat) * 1e9 / (100_000 * one.size)
 
     n_rep = 20_000
     words = np.empty((4, 64), dtype=np.uint64)
@@ -189,7 +181,8 @@ def main(argv=None):
     result = {
         "ns_per_variate": rows,
         "ns_per_particle_step": {"BAOAB": baoab, "Euler-Maruyama": em},
-        "particles": args.particles, "steps": args.steps, "threads": 1,
+        "particles": args.particles, "steps": args.steps, "threads": 1, "clock": "process CPU time",
+        "loadavg": list(os.getloadavg()),
         "tile": schemes.TILE, "block": schemes.BLOCK,
         "machine": platform.processor() or platform.machine(),
         "numba": numba.__version__, "numpy": np.__version__,
