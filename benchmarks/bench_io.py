@@ -2,7 +2,7 @@
 
 Run: ``python benchmarks/bench_io.py [--quick]``. Prints a table and writes
 benchmarks/results/io.json. Every row is measured in this same run (best of a
-few repeats, compiled code warm):
+few repeats in wall time, compiled code warm; the machine's load is recorded):
 
 * memory: 10,000 particles in a 3D harmonic trap (Euler-Maruyama), every step
   recorded, kept in a :class:`~langsim.trajectory.MemorySink`;
@@ -58,8 +58,8 @@ class TimedSink:
         finally:
             self.seconds += time.perf_counter() - t0
 
-    def start(self, spec):
-        return self._timed("start", spec)
+    def start(self, spec, layout):
+        return self._timed("start", spec, layout)
 
     def write(self, *args):
         return self._timed("write", *args)
@@ -67,8 +67,11 @@ class TimedSink:
     def checkpoint(self, *args):
         return self._timed("checkpoint", *args)
 
-    def finish(self, status):
-        return self._timed("finish", status)
+    def finish(self, *args):
+        return self._timed("finish", *args)
+
+    def __getattr__(self, name):          # resumed, abort, ...: the wrapped sink's
+        return getattr(self.sink, name)
 
 
 def run_once(cfg, path=None):
@@ -145,7 +148,9 @@ def main(argv=None):
     verdict = "meets" if overhead <= TARGET_OVERHEAD else "misses"
     print(f"uncompressed HDF5 overhead {overhead:+.1%}: {verdict} the target of "
           f"+{TARGET_OVERHEAD:.0%}; file identical to memory: {identical}")
-    result = {"machine": platform.platform(), "cpus": os.cpu_count(), "h5py": h5py.__version__,
+    result = {"date": time.strftime("%Y-%m-%d %H:%M:%S %z"), "loadavg": list(os.getloadavg()),
+              "clock": "wall time (the run writes files)",
+              "machine": platform.platform(), "cpus": os.cpu_count(), "h5py": h5py.__version__,
               "hdf5": h5py.version.hdf5_version, "langsim": langsim.__version__,
               "n_steps": n_steps, "n_particles": 10_000, "dimensions": 3, "n_frames": n_frames,
               "bytes_positions": n_bytes, "rows": table,
