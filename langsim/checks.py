@@ -427,8 +427,10 @@ def check(traj, z_threshold=4.5, min_events=20, transient_factor=10.0):
             report.notes.append(f"axis {AXES[a]}: moving trap, equilibrium checks skipped")
         elif k == "drift":
             report.notes.append(f"axis {AXES[a]}: constant force without trap, MSD check skipped")
-        elif k in ("periodic", "gaussian-well", "expression"):
+        elif k in ("periodic", "expression"):
             report.notes.append(f"axis {AXES[a]}: {k} potential, no exact prediction; skipped")
+        elif k == "gaussian-well" and a == 0:
+            report.notes.append("gaussian-well potential: escape from the well checked, other checks skipped")
     wall_h = _get(traj.config, "medium", "wall_distance", default=None)
     if wall_h is not None:
         report.notes.append(f"friction corrected for a wall at {wall_h * 1e6:.4g} um from the bead's centre "
@@ -522,6 +524,11 @@ def check(traj, z_threshold=4.5, min_events=20, transient_factor=10.0):
     if "wall" in kinds:
         from .wall_checks import extend as _wall_rows
         _wall_rows(report, traj, s, start, kw)
+    if "gaussian-well" in kinds:
+        from .rates.checkrows import gaussian_well_rows
+        rows, notes = gaussian_well_rows(traj, s.kT, s.friction, s.frame_dt, s.regime)
+        report.rows.extend(Row(**r) for r in rows)
+        report.notes.extend(notes)
     return report
 
 

@@ -63,6 +63,17 @@ checked (no exact prediction applies to the run: the report says so).
 """
 
 
+RATE_HELP = """\
+Thermal escape rate of the question a config's [escape] table asks: the rate
+(1/s) and the mean first-passage time (s) from the start basin's equilibrium to
+the target, with 95 % intervals, the method used (direct counting or adaptive
+multilevel splitting, chosen from a short pilot run), the particle-steps spent,
+and the exact theory where it applies (with z). Exit code 0 with a result
+(also when a step or time limit stopped it: the output says NOT CONVERGED), 1
+when the computation failed, 2 for a bad config.
+"""
+
+
 def _warning_line(message, category, filename, lineno, file=None, line=None):
     print(f"warning: {str(message).splitlines()[0] if str(message) else category.__name__}"
           + ("" if "\n" not in str(message) else " ..."), file=sys.stderr)
@@ -122,6 +133,13 @@ def build_parser():
     p.set_defaults(func=cmd_check)
     from .measurement.commands import add_commands   # score, export (runs with a [measurement] table)
     add_commands(sub)
+
+    p = sub.add_parser("rate", help="thermal escape rate of a config's [escape] question",
+                       description=RATE_HELP, formatter_class=argparse.RawDescriptionHelpFormatter)
+    p.add_argument("config", metavar="CONFIG", help="TOML config file with an [escape] table")
+    p.add_argument("--json", action="store_true", help="print the result as JSON")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
+    p.set_defaults(func=cmd_rate)
     return parser
 
 
@@ -371,6 +389,21 @@ def cmd_check(args):
                 return _error(str(exc))
             print(f"wrote {len(paths)} figure(s) to {args.plots}", file=sys.stderr)
     return EXIT_OK if report.passed else EXIT_FAILED
+
+
+# ------------------------------------------------------------------ rate
+
+def cmd_rate(args):
+    from .rates import RateError, escape_rate
+    try:
+        result = escape_rate(args.config, progress=not args.quiet)
+    except RateError as exc:
+        print(f"error: {args.config}: {exc}", file=sys.stderr)
+        return EXIT_FAILED
+    print(result.to_json() if args.json else result.format_table())
+    if not result.converged:
+        print(f"warning: the wanted precision was not reached ({result.message})", file=sys.stderr)
+    return EXIT_OK
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -115,6 +115,8 @@ class RunSpec:
     spawn_key: tuple = ()
     #: Curvature of the user terms per axis (N/m), measured numerically, or None.
     user_curvature: tuple = None
+    #: The ``[escape]`` question (:class:`langsim.rates.spec.EscapeSpec`), or None.
+    escape: object = None
 
     @property
     def kT(self):
@@ -210,6 +212,11 @@ def load(source):
                                           dynamics.dt, dynamics.steps)
     output = _output(Table(errors, "[output]", top.raw("output"), "[output] {key}"), regime,
                      dynamics)
+    escape = None
+    if top.has("escape"):
+        from .rates.spec import escape_table
+        escape = escape_table(Table(errors, "[escape]", top.raw("escape"), "[escape] {key}"),
+                              particles.dimensions)
     top.finish()
     errors.raise_if_any()
 
@@ -256,9 +263,11 @@ def load(source):
         resolved["oscillator"] = oscillator
     if spawn_key:
         resolved["spawn_key"] = list(spawn_key)
+    if escape is not None:
+        resolved["escape"] = escape.resolved()
     spec = RunSpec(seed, particles, medium, tuple(terms), dynamics, output, resolved,
                    measurement=measurement, units=_osc.units_of(oscillator), spawn_key=spawn_key,
-                   user_curvature=user_k)
+                   user_curvature=user_k, escape=escape)
     _guard_step(spec, path)
     surface.fixed_height_warnings(spec, f"{path}: " if path else "")
     _osc.quantum_warnings(spec, path)

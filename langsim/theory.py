@@ -71,7 +71,7 @@ __all__ = [
     "baoab_velocity_variance", "baoab_transition_matrix",
     "baoab_position_autocorrelation", "baoab_free_msd", "lm_free_msd",
     "scheme_position_variance", "scheme_position_autocovariance",
-    "mfpt", "mfpt_equilibrium", "mfpt_radial", "mfpt_radial_equilibrium",
+    "mfpt", "mfpt_equilibrium", "mfpt_radial", "mfpt_radial_equilibrium", "radial_survival",
     "gaussian_well_langer_time", "gaussian_well_separable_time", "gaussian_well_separable_error",
     "transition_state_rate", "kramers_rate_overdamped",
     "kramers_rate_spatial_diffusion", "kramers_rate_energy_diffusion",
@@ -733,6 +733,82 @@ def mfpt_radial_equilibrium(potential, basin_edge, r_abs, kT, friction, dimensio
     for a Gaussian well (reference notes section 12.3).
     """
     return _mfpt_radial(potential, basin_edge, r_abs, kT, friction, dimensions, rtol, basin=True)
+
+
+def radial_survival(potential, r_abs, kT, friction, dimensions, t, r0=None, n_cells=600):
+    """Probability of not yet having reached r = r_abs in an isotropic well, and its time integral.
+
+    The radial Smoluchowski equation on [0, r_abs] (reflecting at 0, absorbing
+    at r_abs) is discretised in ``n_cells`` finite volumes whose hopping rates
+    obey detailed balance with the weights w = r^{d-1} e^{-U/kT} (the kind of
+    discretisation the reference notes, section 7, use for the relaxation
+    eigenvalue; common practice); its symmetrised generator is diagonalised
+    exactly, so S(t) = sum_k a_k b_k exp(-lambda_k t) with a_k = phi_k . sqrt(w)
+    and b_k = phi_k[i]/sqrt(w_i) for a start in cell i, or a_k/sum(w) for the
+    Boltzmann start. With the Boltzmann start the mean first-passage time
+    sum_k a_k b_k/lambda_k agrees with :func:`mfpt_radial_equilibrium` to about
+    1e-6 at the default ``n_cells``.
+
+    Parameters
+    ----------
+    potential : callable U(r) -> J
+    r_abs : float, m
+    kT : float, J
+    friction : float, kg/s
+    dimensions : int
+    t : float or array, s
+    r0 : array of float, m, optional
+        Start radii (linear interpolation between cell centres); default the
+        Boltzmann density inside ``r_abs``.
+
+    Returns
+    -------
+    (S, integral) : arrays of shape (len(r0), len(t)) (or (len(t),) without r0)
+        S(t) and int_0^t S(t') dt' (s).
+    """
+    from scipy.linalg import eigh_tridiagonal
+    _check_potential(potential)
+    kT = _positive("kT", kT)
+    D = kT / _positive("friction", friction)
+    R = _positive("r_abs", r_abs)
+    d = int(dimensions)
+    if d not in (1, 2, 3) or d != dimensions:
+        raise ValueError(f"dimensions must be 1, 2 or 3, got {dimensions!r}")
+    t = np.atleast_1d(_times("t", t))
+    n = int(n_cells)
+    h = R / n
+    centres = (np.arange(n) + 0.5) * h
+    faces = np.arange(1, n + 1) * h                     # inner faces 1..n-1 and the absorbing face n
+    u_c = _energies(potential, centres) / kT
+    u_f = _energies(potential, faces) / kT
+    umin = min(u_c.min(), u_f.min())
+    w = centres ** (d - 1) * np.exp(-(u_c - umin))
+    wf = faces ** (d - 1) * np.exp(-(u_f - umin))
+    c = D / (h * h) * wf[:-1]                           # w_i k_{i->i+1} = w_{i+1} k_{i+1->i}
+    out = np.zeros(n)
+    out[:-1] += c / w[:-1]
+    out[1:] += c / w[1:]
+    out[-1] += 2.0 * D / (h * h) * wf[-1] / w[-1]       # into the absorber, half a cell away
+    rates, vectors = eigh_tridiagonal(out, -c / np.sqrt(w[:-1] * w[1:]))
+    a = vectors.T @ np.sqrt(w)                          # (k,)
+    if r0 is None:
+        coef = (a * a / w.sum())[None, :]               # (1, k)
+    else:
+        r0 = np.atleast_1d(np.asarray(r0, dtype=float))
+        if np.any(r0 < 0) or np.any(r0 > R):
+            raise ValueError(f"r0 must lie in [0, r_abs = {R!r}]")
+        per_cell = vectors / np.sqrt(w)[:, None]        # (cell, k): phi_k[i]/sqrt(w_i)
+        grid = np.concatenate(([0.0], centres, [R]))
+        rows = np.vstack([per_cell[0], per_cell, np.zeros(n)])   # S = 0 at the absorber
+        idx = np.clip(np.searchsorted(grid, r0, side="right") - 1, 0, n)
+        frac = (r0 - grid[idx]) / (grid[idx + 1] - grid[idx])
+        coef = a[None, :] * ((1 - frac)[:, None] * rows[idx] + frac[:, None] * rows[idx + 1])
+    decay = np.exp(-np.outer(rates, t))                 # (k, t)
+    S = coef @ decay
+    integral = coef @ (-np.expm1(-np.outer(rates, t)) / rates[:, None])
+    if r0 is None:
+        return S[0], integral[0]
+    return S, integral
 
 
 def _gaussian_well_args(depth, waist, r_abs, kT, dimensions):

@@ -229,3 +229,30 @@ def test_nothing_checked_is_not_a_pass(tmp_path):
     assert cli.main(["check", str(tmp_path / "p.h5")]) == 1
     harmonic = Traj(*harmonic_trajectory(3, frames=4000))
     assert check(harmonic).checked > 0 and check(harmonic).passed
+
+
+def test_gaussian_well_escape_rows():
+    # 3D Gaussian well at 5 kT, frames every step: escapes by the end against the exact radial
+    # survival of each particle's start (radial Smoluchowski equation; discrete-monitoring shift of
+    # Broadie, Glasserman & Kou 1997); a wrong depth in the config fails, sparse frames are information
+    import langsim
+    kT, w, gamma, depth = 1.380649e-23 * 295.15, 1e-6, 1e-8, 5.0
+    dt = 0.05 * gamma / (4 * depth * kT / w**2)
+    cfg = {"seed": 11, "particles": {"count": 300, "dimensions": 3, "friction": gamma},
+           "medium": {"temperature": 295.15},
+           "potential": [{"type": "gaussian-well", "depth_kT": depth, "waist": w}],
+           "dynamics": {"dt": dt, "steps": 1000}, "output": {"every": 1}}
+    traj = langsim.run(cfg, progress=False)
+    rep = check(traj)
+    rows = {r.key: r for r in rep.rows}
+    assert rep.passed, rep.format_table()
+    assert rows["escapes.radial"].status == "pass" and 50 < rows["escapes.radial"].predicted < 250
+    assert rows["escape_rate.radial"].status == "info"
+    pos = np.asarray(traj.positions)
+    bad = copy.deepcopy(traj.config)
+    bad["potential"][0]["depth"] *= 1.4
+    assert "escapes by the end (radial)" in failed(check(Traj(pos, bad)))
+    sparse = copy.deepcopy(traj.config)
+    sparse["output"]["every"] = 10                        # the same run seen every 10 steps
+    rep = check(Traj(pos[::10], sparse))
+    assert {r.status for r in rep.rows} <= {"info"} and not rep.passed
