@@ -192,8 +192,11 @@ def _start(report, w, s, cfg, start, n_frames):
     initial = cfg["particles"].get("initial", "equilibrium")
     z0 = None
     if isinstance(initial, list):
-        arr = np.asarray(initial, dtype=float)
-        z0 = arr[..., w.axis]
+        z0 = np.asarray(initial, dtype=float)[..., w.axis]
+    elif isinstance(initial, dict):   # a region: box ranges per axis, or a disc with its z range
+        ranges = initial.get("box") or [None, None, initial.get("z")]
+        z0 = ranges[w.axis] if w.axis < len(ranges) else None
+    if z0 is not None:
         z0 = float(np.max(z0) if w.side > 0 else np.min(z0))
     fall = w.fall_time(z0, mean) if z0 is not None else 0.0
     want = max(0.0, fall + TRANSIENT_RELAXATIONS * tau - s.burn_in)
