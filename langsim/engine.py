@@ -336,7 +336,15 @@ def _split_tables(spec, scheme):
             amp = math.sqrt(2.0 * kT * dt / friction[a])
             coef[0, 1, a] = amp * 0.5 if scheme.averaged_noise else amp
         coef[0, 2, :] = 1.0 if scheme.averaged_noise else 0.0
-        return _k.RULE, coef, np.zeros(0, dtype=np.int64)
+        wall = spec.particles.wall_friction
+        if wall is None:
+            return _k.RULE, coef, np.zeros(0, dtype=np.int64)
+        # the friction stage: row 0 holds the bulk coefficients, row 1 the wall
+        coef = np.concatenate([coef, np.zeros((1, 8, d))])
+        coef[1, _k.W_AXIS:_k.W_DRIFT + 1, 0] = (
+            wall.axis, wall.position, wall.side, wall.radius,
+            kT * dt / wall.bulk if wall.drift else 0.0)
+        return _k.RULE_WALL, coef, np.zeros(0, dtype=np.int64)
     mass = float(spec.particles.mass)
     feedback = np.array(spec.particles.feedback or (0.0,) * d, dtype=np.float64)
     coef = np.zeros((len(scheme.splitting), 8, d))

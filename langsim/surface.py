@@ -73,12 +73,10 @@ class WallFriction:
         return (self.axis, self.position, self.side, self.radius)
 
 
-#: Schemes that can run with position-dependent friction (the Ito drift of the
-#: overdamped rule needs uncorrelated noise between steps; BAOAB's O step at the
-#: current position keeps the velocity Maxwellian without any drift).
-WALL_SCHEMES = ("euler-maruyama", "baoab")
-#: Whether the engine has its friction stage yet (set when it lands).
-FRICTION_STAGE = False
+#: Schemes that can run with position-dependent friction: the engine's friction
+#: stage has the Ito drift of the Euler-Maruyama rule (one fresh noise per step;
+#: Leimkuhler-Matthews' averaged noise would need another drift).
+WALL_SCHEMES = ("euler-maruyama",)
 
 
 def wall_friction(terms, particles, medium, dynamics, errors):
@@ -103,13 +101,10 @@ def wall_friction(terms, particles, medium, dynamics, errors):
         errors.note(f"{where} = true: expected a single [particles] friction (the bulk value the "
                     f"wall correction multiplies), got {list(particles.friction)!r} (kg/s)")
     if dynamics.scheme not in WALL_SCHEMES:
-        errors.note(f"{where} = true: expected [dynamics] scheme one of "
-                    f"{', '.join(repr(s) for s in WALL_SCHEMES)} with position-dependent friction, "
-                    f"got {dynamics.scheme!r}")
-    if not FRICTION_STAGE:
-        errors.note(f"{where} = true: position-dependent friction is not available yet (it "
-                    "needs the engine's friction stage); expected hydrodynamic = false (bulk "
-                    "friction) or [medium] wall_distance (a fixed height)")
+        errors.note(f"[dynamics] scheme = {dynamics.scheme!r}: expected "
+                    f"{' or '.join(repr(s) for s in WALL_SCHEMES)} (overdamped) with "
+                    f"{where} = true (position-dependent friction); or set {where} = false "
+                    "(bulk friction) or [medium] wall_distance (a fixed height)")
     return WallFriction(wall.axis, wall.position, wall.side, wall.radius, particles.friction[0])
 
 

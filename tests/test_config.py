@@ -220,8 +220,10 @@ def test_hydrodynamic_wall_needs_the_friction_stage():
     with pytest.raises(ConfigError) as info:
         config.load(cfg)
     text = str(info.value)
-    assert "potential[6].hydrodynamic = true: expected [dynamics] scheme one of" in text
-    assert "position-dependent friction is not available yet" in text
+    assert ("[dynamics] scheme = 'leimkuhler-matthews': expected 'euler-maruyama' (overdamped) "
+            "with potential[6].hydrodynamic = true") in text
+    cfg["dynamics"]["scheme"] = "euler-maruyama"
+    assert config.load(cfg).particles.wall_friction.axis == 1
 
 
 def test_per_particle_positions_from_an_array():

@@ -13,6 +13,14 @@ holds what each scheme means):
   transition of the linear (Ornstein-Uhlenbeck) process,
   z <- M z + g(t) + L xi with g(t) = a + b t + sum_o p_o sin(w_o t + phi_o)
   + q_o cos(w_o t + phi_o), per axis.
+* **friction stage** (kind ``RULE_WALL``): the overdamped Euler-Maruyama rule
+  with the mobility of a sphere near a plane wall at the current height h
+  (:func:`langsim.kernels.walls.wall_mobility`): per particle and step,
+  x_a <- x_a + mu_a(h) dt F_a + sqrt(2 kT mu_a(h) dt) xi_a, plus along the
+  wall normal the Ito drift kT (d mu_perp/dz) dt [3, 4], without which the
+  stationary density is exp(-U/kT)/D instead of Boltzmann's. Row 1 of
+  ``coef`` holds the wall (``W_AXIS``, ...); the other kinds never read it and
+  their kernels do not contain the stage.
 * **recorders** (``rec_int``, ``rec_w``, ``rec_acc``, ``rec_out``): frame k of
   recorder r has taps at step counts offset + k period + i spacing,
   i < n_taps; mode ``SUM`` keeps sum_i w_i x(tap i) (a snapshot is one tap
@@ -46,6 +54,11 @@ References
        2013(1), 34 (2013).
 .. [2] B. Leimkuhler, C. Matthews, M. V. Tretyakov, Proc. R. Soc. A 470,
        20140120 (2014).
+.. [3] D. L. Ermak, J. A. McCammon, "Brownian dynamics with hydrodynamic
+       interactions", J. Chem. Phys. 69, 1352 (1978).
+.. [4] A. W. C. Lau, T. C. Lubensky, "State-dependent diffusion: thermodynamic
+       consistency and its path integral formulation", Phys. Rev. E 76, 011123
+       (2007).
 """
 import math
 
@@ -54,12 +67,18 @@ from numba import njit
 
 from .forces import builtin_forces, no_coordinate, no_extra
 from .noise import BRIDGE_COMPONENT, fill_tile, philox4x64, uniform_open
+from .walls import wall_mobility
 
 #: Scheme kinds.
 RULE = 0
 SPLITTING = 1
 EXACT_OD = 2
 EXACT_UD = 3
+RULE_WALL = 4
+#: Slots of ``coef[1, :, 0]`` of kind ``RULE_WALL``: the wall normal, the wall
+#: plane's coordinate (m), side (+1 beads above it, -1 below), bead radius (m),
+#: and kT dt/gamma0 (m^2, the drift's factor; 0 switches the drift off).
+W_AXIS, W_POSITION, W_SIDE, W_RADIUS, W_DRIFT = range(5)
 #: Splitting letters.
 LETTER_A = 0
 LETTER_B = 1
@@ -290,6 +309,9 @@ def advance(x, v, ids, status, event_step, p_begin, p_end, step0, n_steps, dt,
     if KIND == RULE:
         n_comp = d
         extra = 1 if coef[0, 2, 0] != 0.0 else 0
+    elif KIND == RULE_WALL:
+        n_comp = d
+        extra = 0
     elif KIND == SPLITTING:
         n_o = 0
         for j in range(n_letters):
@@ -303,7 +325,14 @@ def advance(x, v, ids, status, event_step, p_begin, p_end, step0, n_steps, dt,
     else:
         n_comp = 2 * d
         extra = 0
-    n_osc = coef.shape[0] - 2 if KIND >= EXACT_OD else 0
+    n_osc = coef.shape[0] - 2 if KIND == EXACT_OD or KIND == EXACT_UD else 0
+    w_axis, w_position, w_side, w_radius, w_drift = 0, 0.0, 1.0, 0.0, 0.0
+    if KIND == RULE_WALL:
+        w_axis = int(coef[1, W_AXIS, 0])
+        w_position = coef[1, W_POSITION, 0]
+        w_side = coef[1, W_SIDE, 0]
+        w_radius = coef[1, W_RADIUS, 0]
+        w_drift = coef[1, W_DRIFT, 0] * w_side
     stop_kind = stop_int[0]
     bridge = stop_int[2] != 0
     below = stop_real[0]
@@ -331,7 +360,7 @@ def advance(x, v, ids, status, event_step, p_begin, p_end, step0, n_steps, dt,
         c1 = np.empty((max(n_letters, 2), nd))
         c2 = np.empty((max(n_letters, 2), nd))
         where = np.empty((max(n_letters, 1), nd), dtype=np.int64)
-        if KIND == RULE:
+        if KIND == RULE or KIND == RULE_WALL:
             for e in range(nd):
                 c1[0, e] = coef[0, 0, e % d]
                 c2[0, e] = coef[0, 1, e % d]
@@ -395,6 +424,24 @@ def advance(x, v, ids, status, event_step, p_begin, p_end, step0, n_steps, dt,
                     else:
                         for e in range(nd):
                             xf[e] += live[e] * (c1[0, e] * ff[e] + c2[0, e] * noise[s, e])
+                elif KIND == RULE_WALL:
+                    # friction stage: mobility factors at the current height, noise
+                    # sqrt(2 kT mu dt), Ito drift kT dmu/dz dt along the normal
+                    _forces(codes, params, extra_params, X, step * dt, F, Fx, energy)
+                    for i in range(n):
+                        par, perp, slope = wall_mobility(w_side * (X[i, w_axis] - w_position),
+                                                         w_radius)
+                        root_par = math.sqrt(par)
+                        root_perp = math.sqrt(perp)
+                        for a in range(d):
+                            e = i * d + a
+                            if a == w_axis:
+                                xf[e] += live[e] * (perp * c1[0, e] * ff[e]
+                                                    + root_perp * c2[0, e] * noise[s, e]
+                                                    + w_drift * slope)
+                            else:
+                                xf[e] += live[e] * (par * c1[0, e] * ff[e]
+                                                    + root_par * c2[0, e] * noise[s, e])
                 elif KIND == SPLITTING:
                     elapsed = 0.0
                     for j in range(n_letters):

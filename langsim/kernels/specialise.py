@@ -42,6 +42,7 @@ from langsim.kernels.noise import fill_tile
 from langsim.kernels import schemes as _stages
 from langsim.kernels.schemes import (_any_nonfinite, _bridge_hit, _first_tap, _mark_nonfinite,
                                      _next_tap, _tap)
+from langsim.kernels.walls import wall_mobility
 
 globals().update({k: v for k, v in vars(_stages).items() if k.isupper()})   # stage constants
 '''
