@@ -15,6 +15,7 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 
 from . import gas as _gas
+from . import guards
 from . import oscillators as _osc
 from . import potentials as _pot
 from . import schemes as _registry
@@ -23,7 +24,7 @@ from . import seeding, surface, units
 from .measurement import placement as _placement
 from .measurement import spec as _measurement_spec
 from .validation import (ConfigError, Errors, Invalid, Table, boolean, choice, integer, number,
-                         per_axis, text)
+                         path_like, per_axis, plain)
 
 #: Schemes by regime (from the registry, :mod:`langsim.schemes`). The first is the regime's default.
 SCHEMES = {regime: _registry.names(regime) for regime in ("overdamped", "underdamped")}
@@ -146,31 +147,59 @@ class RunSpec:
 
 
 def read(source):
-    """The mapping of a TOML file path, or a copy of a mapping."""
-    if isinstance(source, (str, os.PathLike)):
+    """The mapping of a TOML file path, or a copy of a mapping.
+
+    A file is refused before parsing when it is too big, not UTF-8, or nested or
+    dotted beyond :mod:`langsim.guards`' bounds."""
+    from collections.abc import Mapping
+    if isinstance(source, (str, bytes, os.PathLike)):
         path = os.fspath(source)
+        path = os.fsdecode(path) if isinstance(path, bytes) else path
+        if "\x00" in path:
+            raise ConfigError(f"config path = {path!r}: contains a NUL character; expected a "
+                              "file name")
         try:
             with open(path, "rb") as fh:
-                return tomllib.load(fh), path
+                data = fh.read(guards.MAX_CONFIG_BYTES + 1)
         except FileNotFoundError:
             raise ConfigError(f"{path}: no such config file") from None
         except IsADirectoryError:
             raise ConfigError(f"{path}: is a directory, expected a TOML config file") from None
+        except (OSError, UnicodeEncodeError) as exc:
+            raise ConfigError(f"{path}: cannot be read ({getattr(exc, 'strerror', None) or exc}); "
+                              "expected a readable TOML config file") from None
+        text = guards.toml_text(data, path)
+        try:
+            return tomllib.loads(text), path
         except tomllib.TOMLDecodeError as exc:
             raise ConfigError(f"{path}: not valid TOML: {exc}") from None
-    if isinstance(source, dict):
-        return _copy(source), None
-    raise ConfigError(f"config = {source!r}: expected a path to a TOML file or a mapping")
+        except (RecursionError, MemoryError):
+            raise ConfigError(f"{path}: too deeply nested or too large to parse; expected a "
+                              "plain config file") from None
+    if isinstance(source, Mapping):
+        try:
+            return _copy(source), None
+        except RecursionError:
+            raise ConfigError("config: tables nested too deeply; expected the shape of a "
+                              "config file") from None
+    raise ConfigError(f"config = {_fmt_value(source)}: expected a path to a TOML file or a "
+                      "mapping")
+
+
+def _fmt_value(value):
+    from .validation import _fmt
+    return _fmt(value)
 
 
 def _copy(mapping):
     """Deep copy that leaves callables and arrays (user terms, positions) shared."""
+    from collections.abc import Mapping
     out = {}
     for key, value in mapping.items():
-        if isinstance(value, dict):
+        if isinstance(value, Mapping):
             out[key] = _copy(value)
         elif isinstance(value, list):
-            out[key] = [(_copy(v) if isinstance(v, dict) else v) for v in value]
+            out[key] = [(_copy(v) if isinstance(v, Mapping) else v) for v in value]
         else:
             out[key] = value
     return out
@@ -185,6 +214,14 @@ def load(source):
         Listing every problem found, each with key, value and expectation.
     """
     mapping, path = read(source)
+    try:
+        return _load(mapping, path)
+    except RecursionError:
+        raise ConfigError(f"{path or 'config'}: values nested too deeply; expected the shape "
+                          "of a config file") from None
+
+
+def _load(mapping, path):
     errors = Errors(path)
     mapping, oscillator = _osc.translate(mapping, errors)
     top = Table(errors, "", mapping, key_format="{key}")
@@ -220,12 +257,18 @@ def load(source):
     top.finish()
     errors.raise_if_any()
 
+    provisional = RunSpec(seed, particles, medium, tuple(terms), dynamics, output, {},
+                          measurement=measurement, spawn_key=spawn_key)
+    table = mapping.get("particles")
+    guards.check_derived(provisional, errors, "[particles] friction" if isinstance(table, dict)
+                         and "friction" in table else "[particles] radius")
+    errors.raise_if_any()
     user_k = _stepcheck.user_curvature(terms, particles.dimensions, kT,
                                        _start_point(particles, terms))
     user_k = None if user_k is None else tuple(float(k) for k in user_k)
-    provisional = RunSpec(seed, particles, medium, tuple(terms), dynamics, output, {},
-                          measurement=measurement, spawn_key=spawn_key, user_curvature=user_k)
-    particles = replace(particles, burn_in=_burn_in(provisional))
+    provisional = replace(provisional, user_curvature=user_k)
+    particles = replace(particles, burn_in=_burn_in(provisional, errors))
+    errors.raise_if_any()
     resolved = {
         "seed": seed,
         "particles": {
@@ -318,8 +361,8 @@ def _medium(t):
         t.finish()
         # 1.0 is a placeholder when the gas is invalid: its error is already reported
         return Medium(temperature, 1.0 if gas is None else gas.viscosity, gas=gas)
-    visc = t.raw("viscosity", "water")
-    if visc == "water":
+    visc = plain(t.raw("viscosity", "water"))
+    if isinstance(visc, str) and visc == "water":
         lo, hi = units.WATER_T_RANGE
         if lo <= temperature <= hi:
             viscosity = units.water_viscosity(temperature)
@@ -379,7 +422,10 @@ def _particles(t, medium, regime, errors):
         if radius is None:
             errors.note("[particles] density needs radius to give a mass: expected radius (m) or mass (kg)")
         else:
-            mass = units.sphere_mass(radius, density)
+            try:
+                mass = units.sphere_mass(radius, density)
+            except OverflowError:       # radius**3 beyond float range: refused as derived mass
+                mass = math.inf
     if regime == "underdamped" and mass is None and density is None:
         errors.note("[particles] mass is missing: the underdamped regime needs mass (kg) "
                     "or density (kg/m^3) with radius")
@@ -407,7 +453,7 @@ def _initial(t, count, d):
         return "equilibrium"
     try:
         arr = np.array(value, dtype=float)
-    except (TypeError, ValueError):
+    except (TypeError, ValueError, OverflowError):
         arr = None
     if arr is not None and arr.shape == (d,) and np.all(np.isfinite(arr)):
         return arr
@@ -449,7 +495,7 @@ def _dynamics(t, regime):
         if other:
             t.errors.messages[-1] += f"; {t.mapping['scheme']!r} is a scheme of the {other[0]} regime"
     dt = t.get("dt", _POS, required=True, units="s") or 1.0
-    steps = t.get("steps", integer(1))
+    steps = t.get("steps", integer(1, guards.MAX_STEPS))
     duration = t.get("duration", _POS, units="s")
     if steps is not None and duration is not None:
         t.errors.note("[dynamics] steps and duration are both given: expected one of them")
@@ -458,8 +504,9 @@ def _dynamics(t, regime):
             t.errors.note("[dynamics] duration is missing: expected duration (s) or steps")
         steps = 1
     elif steps is None:
-        steps = max(1, round(duration / dt))
-        if abs(steps * dt - duration) > 1e-9 * duration:
+        ratio = guards.bounded_steps(t.where("duration"), duration, "duration / dt", dt, t.errors)
+        steps = max(1, round(ratio)) if ratio is not None else 1
+        if ratio is not None and abs(steps * dt - duration) > 1e-9 * duration:
             t.errors.add(t.where("duration"), duration,
                          f"a whole number of steps of dt = {dt!r} s (nearest: {steps * dt!r})", "s")
     allow = t.get("allow_unstable", boolean, default=False)
@@ -468,11 +515,11 @@ def _dynamics(t, regime):
 
 
 def _output(t, regime, dynamics):
-    every = t.get("every", integer(1), default=1)
+    every = t.get("every", integer(1, guards.MAX_STEPS), default=1)
     if dynamics.steps % every:
         t.errors.add(t.where("every"), every,
                      f"a divisor of the number of steps ({dynamics.steps})")
-    path = t.get("path", text)
+    path = t.get("path", path_like)
     velocities = t.get("velocities", boolean, default=(regime == "underdamped"))
     if velocities and regime != "underdamped":
         t.bad("velocities", "false: overdamped runs have no velocities")
@@ -537,17 +584,22 @@ def separable(spec):
     return all(t.separable for t in spec.terms)
 
 
-def _burn_in(spec):
+def _burn_in(spec, errors):
     """The burn-in (s, whole steps): as given, 0 where equilibrium is sampled
     exactly, else BURN_IN_RELAXATIONS relaxation times."""
     p = spec.particles
     if p.burn_in is not None:
-        value = p.burn_in
+        value, why = p.burn_in, "burn_in / dt"
     elif isinstance(p.initial, str) and spec.terms and not separable(spec):
         value = BURN_IN_RELAXATIONS * relaxation_time(spec)
+        why = (f"the default burn-in, {BURN_IN_RELAXATIONS:g} relaxation times; set "
+               "[particles] burn_in yourself")
     else:
-        value = 0.0
-    return math.ceil(value / spec.dynamics.dt - 1e-9) * spec.dynamics.dt
+        value, why = 0.0, ""
+    ratio = guards.bounded_steps("[particles] burn_in", value, why, spec.dynamics.dt, errors)
+    if ratio is None:
+        return 0.0
+    return math.ceil(ratio - 1e-9) * spec.dynamics.dt
 
 
 def relaxation_time(spec):

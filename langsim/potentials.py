@@ -512,6 +512,85 @@ def _caret(source, node_or_col, message):
     return f"{message}\n    {source}\n    {' ' * col}^"
 
 
+#: Bounds of an energy expression: characters, nesting depth (a chain of + - or * /
+#: counts once), magnitude of any constant in it or its gradient, and the largest
+#: integer exponent kept exact (larger ones are floats: sympy would expand them exactly).
+MAX_EXPRESSION_CHARS = 2000
+MAX_EXPRESSION_DEPTH = 40
+MAX_CONSTANT = 1e300
+MAX_EXACT_INTEGER = 2**53
+MAX_INT_EXPONENT = 1024
+_CHAINS = ((ast.Add, ast.Sub), (ast.Mult, ast.Div))
+
+
+def _chain_class(node):
+    if isinstance(node, ast.BinOp):
+        for i, ops in enumerate(_CHAINS):
+            if isinstance(node.op, ops):
+                return i
+    if isinstance(node, ast.UnaryOp):
+        return "unary"
+    return None
+
+
+def _depth(tree):
+    """Nesting depth of an expression tree, without recursion."""
+    deepest, stack = 0, [(tree.body if isinstance(tree, ast.Expression) else tree, 1)]
+    while stack:
+        node, depth = stack.pop()
+        deepest = max(deepest, depth)
+        cls = _chain_class(node)
+        for child in ast.iter_child_nodes(node):
+            if isinstance(child, (ast.operator, ast.unaryop, ast.expr_context)):
+                continue
+            same = cls is not None and _chain_class(child) == cls and (
+                child is getattr(node, "left", None) or child is getattr(node, "operand", None))
+            stack.append((child, depth if same else depth + 1))
+    return deepest
+
+
+def _float_op(op, a, b):
+    """a op b in float64; raises ArithmeticError or ValueError when it has no real value."""
+    if op is ast.Add:
+        r = a + b
+    elif op is ast.Sub:
+        r = a - b
+    elif op is ast.Mult:
+        r = a * b
+    elif op is ast.Div:
+        r = a / b
+    else:
+        r = a ** b
+    if isinstance(r, complex):
+        raise ValueError("complex")
+    return r
+
+
+def _check_numbers(expr, src, what="the expression"):
+    """Refuse complex values, division by zero and constants beyond MAX_CONSTANT; large exact
+    integers (from sympy's expansion) become floats. Returns the expression."""
+    import sympy
+    if expr.has(sympy.zoo) or expr.has(sympy.oo) or expr.has(-sympy.oo) or expr.has(sympy.nan):
+        raise Invalid(f"an energy expression with a finite value; {what} divides by zero or "
+                      f"is infinite\n    {src}")
+    if expr.has(sympy.I):
+        raise Invalid(f"a real energy expression; {what} has a complex value (e.g. sqrt of a "
+                      f"negative number)\n    {src}")
+    big = {}
+    for n in expr.atoms(sympy.Number):
+        try:
+            v = abs(float(n))
+        except OverflowError:
+            v = math.inf
+        if not v <= MAX_CONSTANT:
+            size = f"{v:.3g}" if math.isfinite(v) else "a value beyond float range"
+            raise Invalid(f"an energy expression whose constants stay below {MAX_CONSTANT:g} in "
+                          f"magnitude; {what} holds {size}\n    {src}")
+        if n.is_Rational and (abs(n.p) > MAX_EXACT_INTEGER or n.q > MAX_EXACT_INTEGER):
+            big[n] = sympy.Float(float(n))
+    return expr.xreplace(big) if big else expr
+
+
 def parse_energy(source, parameters, dimensions):
     """Parse an energy expression into a sympy expression, safely (once per expression:
     validation, kernel generation and the step guard share the result).
@@ -519,7 +598,9 @@ def parse_energy(source, parameters, dimensions):
     The string is parsed by Python's ``ast`` and rebuilt node by node from a
     whitelist (numbers, the names x, y, z (up to ``dimensions``), t, the
     parameter names, pi, e, the functions in ``_FUNCTIONS``, + - * / **).
-    Nothing is evaluated as Python.
+    Nothing is evaluated as Python. Arithmetic on constants is done in float64
+    (so ``10**10**10`` is refused as too large instead of computed exactly);
+    length, nesting depth and the magnitude of constants are bounded.
 
     Raises
     ------
@@ -539,12 +620,21 @@ def _parse_energy(source, parameters, dimensions):
     for key in parameters:
         names[key] = sympy.Symbol(key, real=True)
     allowed = sorted(list(names) + list(_CONSTANTS) + list(_FUNCTIONS))
-    try:
-        tree = ast.parse(source.strip(), mode="eval")
-    except SyntaxError as exc:
-        raise Invalid(_caret(source.strip(), max((exc.offset or 1) - 1, 0),
-                             "an energy expression; it does not parse here")) from None
     src = source.strip()
+    if len(src) > MAX_EXPRESSION_CHARS:
+        raise Invalid(f"an energy expression of at most {MAX_EXPRESSION_CHARS} characters (this "
+                      f"one has {len(src)}); a longer energy belongs in a function term")
+    try:
+        tree = ast.parse(src, mode="eval")
+    except SyntaxError as exc:
+        raise Invalid(_caret(src, max((exc.offset or 1) - 1, 0),
+                             "an energy expression; it does not parse here")) from None
+    except (RecursionError, MemoryError, ValueError):
+        raise Invalid(f"an energy expression nested at most {MAX_EXPRESSION_DEPTH} deep") from None
+    depth = _depth(tree)
+    if depth > MAX_EXPRESSION_DEPTH:
+        raise Invalid(f"an energy expression nested at most {MAX_EXPRESSION_DEPTH} deep (this "
+                      f"one: {depth}; a chain of + - or * / counts once)")
 
     def unknown(node, name):
         close = difflib.get_close_matches(name, allowed, n=1)
@@ -554,36 +644,84 @@ def _parse_energy(source, parameters, dimensions):
         return Invalid(_caret(src, node, f"an energy expression; unknown name {name!r}{hint}; "
                                          f"allowed: {', '.join(allowed)}"))
 
+    def number(node, value):
+        """A sympy number for a float64 value; exact Integer when small and integral."""
+        if isinstance(value, int) and abs(value) <= MAX_EXACT_INTEGER:
+            return sympy.Integer(value)
+        try:
+            v = float(value)
+        except OverflowError:
+            v = math.inf
+        if not abs(v) <= MAX_CONSTANT:
+            raise Invalid(_caret(src, node, f"an energy expression whose constants stay below "
+                                            f"{MAX_CONSTANT:g} in magnitude; this one is "
+                                            f"{'beyond float range' if not math.isfinite(v) else f'{v:.3g}'}"))
+        return sympy.Float(v)
+
+    def constant(node, a, b, op):
+        """a op b of two sympy numbers, evaluated in float64."""
+        try:
+            v = _float_op(op, float(a), float(b))
+        except ZeroDivisionError:
+            raise Invalid(_caret(src, node, "an energy expression; this divides by zero")) from None
+        except (OverflowError, ValueError) as exc:
+            why = "has a complex value" if "complex" in str(exc) or isinstance(exc, ValueError) \
+                else "overflows"
+            raise Invalid(_caret(src, node, f"a real, finite energy expression; this {why}")) from None
+        exact = (a.is_Integer and b.is_Integer and op is not ast.Div
+                 and not (op is ast.Pow and b < 0) and abs(v) <= MAX_EXACT_INTEGER)
+        return number(node, int(v) if exact else v)
+
+    def binary(node, a, b):
+        op = type(node.op)
+        if a.is_Number and b.is_Number:
+            return constant(node, a, b, op)
+        if op is ast.Add:
+            return a + b
+        if op is ast.Sub:
+            return a - b
+        if op is ast.Mult:
+            return a * b
+        if op is ast.Div:
+            return a / b
+        if b.is_Integer and abs(int(b)) > MAX_INT_EXPONENT:
+            b = sympy.Float(float(b))
+        return a ** b
+
     def build(node):
         if isinstance(node, ast.Expression):
             return build(node.body)
         if isinstance(node, ast.Constant) and isinstance(node.value, (int, float)) \
                 and not isinstance(node.value, bool):
-            return sympy.Float(node.value) if isinstance(node.value, float) else sympy.Integer(node.value)
+            return number(node, node.value)
         if isinstance(node, ast.Name):
             if node.id in names:
                 return names[node.id]
             if node.id in _CONSTANTS:
                 return sympy.pi if node.id == "pi" else sympy.E
             raise unknown(node, node.id)
-        if isinstance(node, ast.BinOp) and type(node.op) in _BINOPS:
-            a, b = build(node.left), build(node.right)
-            op = type(node.op)
-            if op is ast.Add:
-                return a + b
-            if op is ast.Sub:
-                return a - b
-            if op is ast.Mult:
-                return a * b
-            if op is ast.Div:
-                return a / b
-            return a ** b
         if isinstance(node, ast.BinOp) and isinstance(node.op, ast.BitXor):
             raise Invalid(_caret(src, node.right, "an energy expression; '^' is not a power here, "
                                                   "write ** instead"))
+        if isinstance(node, ast.BinOp) and type(node.op) in _BINOPS:
+            chain, cls = [], _chain_class(node)
+            while (isinstance(node, ast.BinOp) and type(node.op) in _BINOPS
+                   and _chain_class(node) == cls and cls is not None):   # a + b - c ...: a loop
+                chain.append(node)
+                node = node.left
+            if not chain:
+                return binary(node, build(node.left), build(node.right))
+            value = build(node)
+            for link in reversed(chain):
+                value = binary(link, value, build(link.right))
+            return value
         if isinstance(node, ast.UnaryOp) and isinstance(node.op, (ast.USub, ast.UAdd)):
-            v = build(node.operand)
-            return -v if isinstance(node.op, ast.USub) else v
+            sign = 1
+            while isinstance(node, ast.UnaryOp) and isinstance(node.op, (ast.USub, ast.UAdd)):
+                sign = -sign if isinstance(node.op, ast.USub) else sign
+                node = node.operand
+            v = build(node)
+            return -v if sign < 0 else v
         if isinstance(node, ast.Call):
             if not isinstance(node.func, ast.Name) or node.func.id not in _FUNCTIONS:
                 fname = node.func.id if isinstance(node.func, ast.Name) else ast.unparse(node.func)
@@ -591,13 +729,32 @@ def _parse_energy(source, parameters, dimensions):
             if node.keywords or len(node.args) != 1:
                 raise Invalid(_caret(src, node, f"an energy expression; {node.func.id}() takes "
                                                 "exactly one argument"))
-            return getattr(sympy, node.func.id)(build(node.args[0]))
+            arg = build(node.args[0])
+            if arg.is_Number:
+                return function_of_number(node, node.func.id, arg)
+            return getattr(sympy, node.func.id)(arg)
         what = type(node).__name__
         raise Invalid(_caret(src, node, f"an energy expression; {what} is not allowed "
                                         "(only numbers, names, + - * / ** and functions)"))
 
-    expr = build(tree)
+    def function_of_number(node, name, arg):
+        fn = abs if name == "Abs" else getattr(math, name)
+        try:
+            return number(node, float(fn(float(arg))))
+        except ValueError:
+            raise Invalid(_caret(src, node, f"a real energy expression; {name}({float(arg):g}) "
+                                            "has no real value")) from None
+        except OverflowError:
+            raise Invalid(_caret(src, node, f"a finite energy expression; {name}({float(arg):g}) "
+                                            "overflows")) from None
+
+    expr = _check_numbers(build(tree), src)
     return expr, [names[c] for c in coords], names["t"]
+
+
+def _sympy_diff(expr, symbol):
+    import sympy
+    return sympy.diff(expr, symbol)
 
 
 def _parameter_name(key):
@@ -638,7 +795,9 @@ class Expression(Term):
             except Invalid as exc:
                 t.errors.add(where, value, exc.expected)
         try:
-            parse_energy(energy, clean, d)
+            expr, coords, _ = parse_energy(energy, clean, d)
+            for c in coords:      # the force is compiled too: its constants are checked now
+                _check_numbers(-_sympy_diff(expr, c), energy.strip(), f"its derivative in {c}")
         except Invalid as exc:
             t.errors.add(t.where("energy"), energy, exc.expected, "J")
         return cls(energy=energy, parameters=clean)
@@ -682,6 +841,11 @@ class Function(Term):
         if not callable(fn):
             t.bad("function", "a callable f(x, t, force) -> energy")
             return cls(function=None)
+        from .guards import compile_user_function
+        try:        # compiled now, so that a function numba refuses fails before any file exists
+            _compiled(fn, compile_user_function)
+        except Invalid as exc:
+            t.bad("function", exc.expected)
         return cls(function=fn)
 
     def energy_at(self, positions, time=0.0):
@@ -860,6 +1024,26 @@ def coordinate_source(formula, d):
     return "\n".join(lines).replace("math.Abs", "abs") + "\n"
 
 
+#: Plain Python functions of function terms and their compiled dispatchers.
+_COMPILED = {}
+
+
+def _compiled(fn, compile_function):
+    """The dispatcher compiled for ``fn`` (cached while ``fn`` lives)."""
+    import weakref
+    key = id(fn)
+    entry = _COMPILED.get(key)
+    if entry is not None and entry[0]() is fn:
+        return entry[1]
+    dispatcher = compile_function(fn)
+    try:
+        ref = weakref.ref(fn, lambda _, key=key, table=_COMPILED: table.pop(key, None))
+    except TypeError:                       # not weak-referenceable: keep it alive instead
+        ref = (lambda obj: (lambda: obj))(fn)
+    _COMPILED[key] = (ref, dispatcher)
+    return dispatcher
+
+
 def _njit(fn):
-    from numba import njit
-    return njit(fn)
+    from .guards import compile_user_function
+    return _compiled(fn, compile_user_function)

@@ -243,12 +243,12 @@ class RunComplete(Exception):
 def stored_seed(path):
     """The seed recorded in a trajectory file, or None when it cannot be read."""
     import h5py
+    from .filecheck import validate
+    from .validation import ConfigError
     try:
         with h5py.File(path, "r", locking=False) as f:
-            if _attr_str(f.attrs.get("format", "")) != FORMAT:
-                return None
-            return int(f.attrs["seed"])
-    except (OSError, KeyError, ValueError):
+            return validate(f, path).seed
+    except (OSError, ConfigError):
         return None
 
 
@@ -468,15 +468,19 @@ class HDF5Sink:
         return None
 
     def _open(self, mode):
+        """(file, layout): the layout validated read-only first, so a damaged file is refused
+        before it is opened for writing."""
         import h5py
+        from .filecheck import validate
         try:
             with h5py.File(self.path, "r", locking=False) as f:
+                layout = validate(f, self.path)
                 ds = f["positions"]
                 cache = _cache_bytes(ds.chunks, ds.dtype)
-        except (OSError, KeyError, TypeError, ValueError):
-            cache = None
+        except OSError as exc:
+            raise _unreadable(self.path, exc) from None
         try:
-            return h5py.File(self.path, mode, rdcc_w0=1.0, rdcc_nbytes=cache)
+            return h5py.File(self.path, mode, rdcc_w0=1.0, rdcc_nbytes=cache), layout
         except (OSError, ValueError) as exc:
             text = str(exc)
             if "already open" in text:
@@ -583,14 +587,11 @@ class HDF5Sink:
         self.headroom = _headroom([ds for g in self.groups.values() for ds in g.datasets], f)
 
     def _reopen(self, spec):
-        import json
-        f = self._open("r+")
+        f, layout = self._open("r+")
         self.file = f
         try:
             _metadata_on_flush_only(f)
-            _check_format(f, self.path)
-            stored = json.loads(f.attrs["config"])
-            diff = config_differences(stored, spec.resolved)
+            diff = config_differences(layout.config, spec.resolved)
             if diff:
                 lines = [f"  {k}: file has {_short(a)}, config gives {_short(b)}"
                          for k, a, b in diff]
@@ -598,24 +599,24 @@ class HDF5Sink:
                     [f"resume {self.path!r}: the config differs from the run in the file in "
                      f"{len(diff)} key(s) that change the results; expected the same config "
                      "(or a new output file, or --overwrite):"] + lines)
-            state = _attr_str(f.attrs.get("state", STATE_RUNNING))
+            state = layout.state
             if state == STATE_COMPLETE:
                 self.already_complete = True
                 raise RunComplete(self.path)
             if state == STATE_FAILED:
-                status = json.loads(f.attrs["status"])
+                status = layout.status
                 raise _config_error(
                     f"resume {self.path!r}: the run ended with a numerical blow-up "
                     f"({status.get('message')}); resuming would repeat it; expected a smaller "
                     "[dynamics] dt and a fresh run (--overwrite)")
             cp = f["checkpoint"]
-            slot = int(cp.attrs["slot"])
+            slot = layout.checkpoint_slot
             if slot < 0:                    # stopped before frame 0: nothing to keep
                 f.close()
                 self.file = None
                 self._create(spec, replace=True)
                 return None
-            step = int(cp.attrs["step"])
+            step = layout.checkpoint_step
             self._setup(f)
             n_frames = {}
             for name, g in self.groups.items():
@@ -882,54 +883,30 @@ def _status_json(status):
 
 
 def _attr_str(value):
-    return value.decode() if isinstance(value, bytes) else str(value)
+    return value.decode("utf-8", "replace") if isinstance(value, bytes) else str(value)
 
 
-def _check_format(f, path):
-    fmt = f.attrs.get("format")
-    if fmt is None or _attr_str(fmt) != FORMAT:
-        raise _config_error(f"{path}: not a langsim trajectory (root attribute format = "
-                            f"{None if fmt is None else _attr_str(fmt)!r}; expected {FORMAT!r})")
-    version = int(f.attrs.get("format_version", -1))
-    if version > FORMAT_VERSION or version < 1:
-        raise _config_error(f"{path}: format_version = {version}; expected 1 to "
-                            f"{FORMAT_VERSION} (written by a newer langsim? upgrade langsim)")
+def _unreadable(path, exc):
+    """The ConfigError for a file HDF5 cannot open (a truncated file is damaged, not busy)."""
+    import re
+    from .filecheck import DamagedFile
+    text = str(exc)
+    cut = re.search(r"truncated file: eof = (\d+).*stored_eof = (\d+)", text)
+    if cut:
+        return DamagedFile(path, "file size", f"{cut.group(1)} bytes",
+                           f"{cut.group(2)} bytes, the size its HDF5 superblock records (the "
+                           "file was cut short, e.g. by an incomplete copy)")
+    return _config_error(f"{path}: not readable as HDF5 ({text}); expected a trajectory file "
+                         "written by langsim run")
 
 
-def read_state(path):
-    """Root attributes of a trajectory file as a dict, without loading frames."""
-    import json
-    import h5py
-    with h5py.File(path, "r", locking=False) as f:
-        _check_format(f, path)
-        a = f.attrs
-        cp = f["checkpoint"].attrs
-        return {"state": _attr_str(a.get("state", STATE_RUNNING)),
-                "n_frames": int(a["n_frames"]), "config": json.loads(a["config"]),
-                "status": json.loads(a["status"]), "created": _attr_str(a["created"]),
-                "langsim_version": _attr_str(a["langsim_version"]),
-                "checkpoint_step": int(cp["step"]), "checkpoint_frames": int(cp["n_frames"])}
-
-
-def load(path):
-    """Open a trajectory file read-only.
-
-    Returns
-    -------
-    Trajectory
-        ``time`` in memory; ``positions`` and ``velocities`` as :class:`FrameView`
-        objects that read frames lazily, trimmed to the frames known to be valid.
-        Close it (or use ``with``) when done.
-
-    Raises
-    ------
-    ConfigError
-        When the file is missing, not HDF5, or not a langsim trajectory.
-    """
-    import json
+def _open_layout(path):
+    """(open read-only h5py File, validated Layout) of a trajectory file."""
     import os
     import h5py
-    path = os.fspath(path)
+    from .filecheck import validate
+    from .safeio import path_text
+    path = path_text(path, "trajectory")
     if not os.path.exists(path):
         raise _config_error(f"{path}: no such file; expected a trajectory file written by "
                             "langsim run")
@@ -938,46 +915,72 @@ def load(path):
     try:
         f = h5py.File(path, "r", locking=False)
     except OSError as exc:
-        raise _config_error(f"{path}: not readable as HDF5 ({exc}); expected a trajectory "
-                            "file written by langsim run") from None
+        raise _unreadable(path, exc) from None
     try:
-        _check_format(f, path)
-        n = int(f.attrs["n_frames"])
-        state = _attr_str(f.attrs.get("state", STATE_RUNNING))
+        return f, validate(f, path)
+    except BaseException:
+        f.close()
+        raise
+
+
+def read_state(path):
+    """Root attributes of a trajectory file as a dict, without loading frames."""
+    f, layout = _open_layout(path)
+    with f:
+        return {"state": layout.state, "n_frames": layout.n_frames, "config": layout.config,
+                "status": layout.status, "created": layout.created,
+                "langsim_version": layout.langsim_version,
+                "checkpoint_step": layout.checkpoint_step,
+                "checkpoint_frames": layout.checkpoint_frames}
+
+
+def load(path):
+    """Open a trajectory file read-only.
+
+    Returns
+    -------
+    Trajectory
+        ``time``, ``positions`` and ``velocities`` as :class:`FrameView` objects
+        that read frames lazily (``numpy.asarray`` reads them all), trimmed to the
+        frames known to be valid. Close it (or use ``with``) when done.
+
+    Raises
+    ------
+    ConfigError
+        When the file is missing, not HDF5, or not a langsim trajectory;
+        :class:`~langsim.filecheck.DamagedFile` (a ConfigError) when its layout
+        is damaged, naming the item and what was expected.
+    """
+    from .safeio import path_text
+    path = path_text(path, "trajectory")
+    f, layout = _open_layout(path)
+    try:
+        n, state = layout.valid_frames, layout.state
+        s = layout.status
         if state == STATE_RUNNING:      # killed writer: trust only the last checkpoint
-            n = min(n, int(f["checkpoint"].attrs["n_frames"]))
-        s = json.loads(f.attrs["status"])
-        if state == STATE_RUNNING:
             s = {"reason": "interrupted", "message": "not finished: the writer is still running "
                  "or was killed; frames up to the last checkpoint are valid"}
         status = Status.from_dict(s)
-        config = json.loads(f.attrs["config"])
-        time = f["time"][:n]
+        time = FrameView(f["time"], n)
         pos = FrameView(f["positions"], n)
-        vel = FrameView(f["velocities"], n) if "velocities" in f else None
+        vel = FrameView(f["velocities"], n) if layout.velocities else None
         groups, units = {}, {"positions": pos.units}
         if vel is not None:
             units["velocities"] = vel.units
-        cp = f["checkpoint"].attrs
-        for name, node in f.items():
-            if name == "checkpoint" or not hasattr(node, "keys") or "time" not in node:
-                continue
-            m = int(node.attrs.get("n_frames", 0))
-            if state == STATE_RUNNING:
-                m = min(m, int(cp.get(f"{name}.n_frames", m)))
-            groups[name] = {"time": node["time"][:m]}
+        for name, m in layout.groups.items():
+            node = f[name]
+            groups[name] = {"time": FrameView(node["time"], m)}
             for key, ds in node.items():
                 if key != "time":
                     groups[name][key] = FrameView(ds, m)
                     units[f"{name}/{key}"] = _attr_str(ds.attrs.get("units", ""))
-        metadata = {"format": _attr_str(f.attrs["format"]),
-                    "format_version": int(f.attrs["format_version"]),
-                    "langsim_version": _attr_str(f.attrs.get("langsim_version", "?")),
-                    "created": _attr_str(f.attrs.get("created", "?")),
+        metadata = {"format": FORMAT, "format_version": layout.format_version,
+                    "langsim_version": layout.langsim_version, "created": layout.created,
                     "compression": f["positions"].compression or "none"}
     except BaseException:
         f.close()
         raise
-    traj = Trajectory(time, pos, vel, config, status, path=path, file=f, groups=groups,
+    traj = Trajectory(time, pos, vel, layout.config, status, path=path, file=f, groups=groups,
                       units=units, file_state=state, metadata=metadata)
+    traj.layout = layout
     return traj

@@ -20,8 +20,25 @@ class ConfigError(ValueError):
 
 
 def _fmt(value):
-    text = repr(value)
+    """A short repr for messages, for any value (a 5000-digit integer, an array, ...)."""
+    if isinstance(value, int) and not isinstance(value, bool) and value.bit_length() > 200:
+        return f"an integer of about {int(value.bit_length() * math.log10(2)) + 1} digits"
+    try:
+        text = repr(value)
+    except Exception:          # a repr that fails is still a value to report
+        text = f"<{type(value).__name__}>"
     return text if len(text) <= 80 else text[:77] + "..."
+
+
+def plain(value):
+    """numpy scalars and 0-d arrays as the Python number (or str, bool) they hold; other
+    values unchanged. Validators see numpy numbers as numbers through this."""
+    import numpy as np
+    if isinstance(value, np.ndarray) and value.ndim == 0:
+        value = value[()]
+    if isinstance(value, np.generic):
+        return value.item()
+    return value
 
 
 class Errors:
@@ -66,9 +83,15 @@ def number(low=None, high=None, low_open=True, high_open=False, finite=True):
     what = "a finite number" if not parts else "a number " + " and ".join(parts)
 
     def check(value):
-        if not _is_number(value) or (finite and not math.isfinite(value)):
+        value = plain(value)
+        if not _is_number(value):
             raise Invalid(what)
-        v = float(value)
+        try:
+            v = float(value)
+        except OverflowError:       # an integer beyond float range
+            raise Invalid(what + " (within float range, |x| < 1.8e308)") from None
+        if finite and not math.isfinite(v):
+            raise Invalid(what)
         if low is not None and (v <= low if low_open else v < low):
             raise Invalid(what)
         if high is not None and (v >= high if high_open else v > high):
@@ -88,6 +111,7 @@ def integer(low=None, high=None):
     what = "an integer" + (" " + " and ".join(parts) if parts else "")
 
     def check(value):
+        value = plain(value)
         if isinstance(value, bool) or not isinstance(value, numbers.Integral):
             if isinstance(value, float) and value.is_integer():
                 value = int(value)
@@ -102,6 +126,7 @@ def integer(low=None, high=None):
 
 
 def boolean(value):
+    value = plain(value)
     if not isinstance(value, bool):
         raise Invalid("true or false")
     return value
@@ -112,7 +137,8 @@ def choice(*options):
     what = "one of " + ", ".join(repr(o) for o in options)
 
     def check(value):
-        if value not in options:
+        value = plain(value)
+        if not isinstance(value, str) or value not in options:
             close = difflib.get_close_matches(str(value), options, n=1) if isinstance(value, str) else []
             raise Invalid(what + (f" (did you mean {close[0]!r}?)" if close else ""))
         return value
@@ -121,16 +147,46 @@ def choice(*options):
 
 
 def text(value):
+    value = plain(value)
     if not isinstance(value, str) or not value.strip():
         raise Invalid("a non-empty string")
-    return value
+    if "\x00" in value or not _encodable(value):
+        raise Invalid("a string without NUL characters or lone surrogates (valid UTF-8)")
+    return str(value)
+
+
+def _encodable(value):
+    try:
+        value.encode("utf-8")
+    except UnicodeEncodeError:
+        return False
+    return True
+
+
+def path_like(value):
+    """A file name: a string or an os.PathLike (pathlib.Path); returns a str. What the name
+    may contain is checked where every output path passes
+    (:func:`langsim.trajectory.check_output_path`)."""
+    import os
+    if isinstance(value, os.PathLike):
+        value = os.fspath(value)
+        if isinstance(value, bytes):
+            value = os.fsdecode(value)
+    value = plain(value)
+    if not isinstance(value, str) or not value.strip():
+        raise Invalid("a non-empty string (a file name)")
+    return str(value)
 
 
 def per_axis(element, dimensions):
     """A validator of a scalar (all axes) or an array of ``dimensions`` values."""
     def check(value):
+        value = plain(value)
         if isinstance(value, (list, tuple)) or hasattr(value, "__array__"):
-            items = list(value.tolist() if hasattr(value, "tolist") else value)
+            try:
+                items = list(value.tolist() if hasattr(value, "tolist") else value)
+            except TypeError:
+                raise Invalid(f"a scalar or an array of {dimensions} values") from None
             if len(items) != dimensions:
                 raise Invalid(f"a scalar or an array of {dimensions} values "
                               f"(one per axis; dimensions = {dimensions})")

@@ -66,7 +66,10 @@ def module_source(kind, user=None, stops=False, coordinate=None):
     if user is None:
         lines.append("HAS_EXTRA = False\nfrom langsim.kernels.forces import no_extra as extra_force")
     else:
-        lines.append("HAS_EXTRA = True\n\n\n@njit(cache=True)\n" + user.source)
+        # error_model="numpy": a pole (1/x at x = 0) gives inf, which ends the run with a
+        # blow-up status, instead of an exception raised inside the parallel kernel
+        lines.append("HAS_EXTRA = True\n\n\n@njit(cache=True, error_model=\"numpy\")\n"
+                     + user.source)
     if coordinate:
         lines.append("\n\n@njit(cache=True)\n" + coordinate)
     else:
