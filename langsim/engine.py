@@ -836,6 +836,8 @@ def run(config, out=None, *, progress=True, threads=None, overwrite=False, resum
     path = out if out is not None else spec.output.path
     if out is None and path is not None and isinstance(config, (str, os.PathLike)):
         path = os.path.join(os.path.dirname(os.fspath(config)), path)   # next to the config
+    from .guards import require_memory
+    require_memory(spec, keep_frames=path is None)    # refused before anything is created
     if path is None:
         sink = MemorySink()
     else:
