@@ -377,6 +377,13 @@ def _note_short(report, moments, a, what):
                             "samples); a longer run fixes it")
 
 
+#: Frames and particles of the MSD figure (its FFT holds one particle's frames at a time).
+PLOT_FRAMES = 1 << 20
+PLOT_PARTICLES = 64
+#: Frames of traj.time read to compare its spacing with dt * every.
+TIME_HEAD = 1 << 16
+
+
 def check(traj, z_threshold=4.5, min_events=20, transient_factor=10.0):
     """Check a trajectory against the predictions for its configuration.
 
@@ -402,9 +409,10 @@ def check(traj, z_threshold=4.5, min_events=20, transient_factor=10.0):
     if len(src.shape) != 3 or src.shape[2] != s.d:
         raise ValueError(f"traj.positions must have shape (frames, particles, {s.d}), got {src.shape}")
     report = CheckReport()
-    time = np.asarray(traj.time, dtype=float)
-    if time.shape != (src.n_frames,):
-        raise ValueError(f"traj.time must have shape ({src.n_frames},), got {time.shape}")
+    shape = tuple(np.shape(traj.time)) if not hasattr(traj.time, "shape") else tuple(traj.time.shape)
+    if shape != (src.n_frames,):
+        raise ValueError(f"traj.time must have shape ({src.n_frames},), got {shape}")
+    time = np.asarray(traj.time[:TIME_HEAD], dtype=float)     # O(1) memory for any file
     spacing = float(np.median(np.diff(time)))
     if not math.isclose(spacing, s.frame_dt, rel_tol=1e-6):
         report.rows.append(Row("frame interval", spacing, None, s.frame_dt, None, "fail",
@@ -765,7 +773,9 @@ def write_plots(traj, report, directory):
 
     n = FrameSource(traj.positions).n_frames - report.start_frame
     L = max(1, min(n // 10, 4096))
-    msd = np.atleast_2d(mean_msd(traj.positions, L, report.start_frame).T).T
+    stop = min(n + report.start_frame, report.start_frame + PLOT_FRAMES)   # bounded memory
+    msd = np.atleast_2d(mean_msd(traj.positions, L, report.start_frame, stop=stop,
+                                 particles=PLOT_PARTICLES).T).T
     lags = np.arange(1, L + 1)
     t = lags * s.frame_dt
     fig, ax = plt.subplots()

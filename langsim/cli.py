@@ -381,6 +381,9 @@ def cmd_check(args):
             report = _check.check(traj)
         except ValueError as exc:   # too little data for an estimate, and the like
             return _error(f"{traj.path}: cannot be checked: {exc}")
+        except KeyError as exc:     # the stored config lacks a key a check needs
+            return _error(f"{traj.path}: cannot be checked: {exc.args[0] if exc.args else exc}; "
+                          "expected the resolved config langsim stores (the file is damaged?)")
         _out(report.to_json() if args.json else report.format_table())
         if args.plots is not None:
             try:

@@ -186,8 +186,7 @@ def check_derived(spec, errors, friction_key="[particles] friction"):
         _bad(errors, "[dynamics] steps", dyn.steps, f"gives a duration of {dyn.duration} s",
              "a finite duration steps * dt (s)")
     for i, term in enumerate(spec.terms):
-        _check_term(errors, f"potential[{i}]", term, p.dimensions, kT,
-                    isinstance(p.initial, str))
+        _check_term(errors, f"potential[{i}]", term, p.dimensions)
 
 
 #: Curvatures that are positive by construction, per built-in term name: the key that
@@ -197,7 +196,7 @@ _SCALE_KEY = {"double-well": ("separation", "32 barrier/separation^2"),
               "gaussian-well": ("waist", "4 depth/waist^2")}
 
 
-def _check_term(errors, where, term, d, kT, equilibrium):
+def _check_term(errors, where, term, d):
     import numpy as np
     if term.code is None:
         return
@@ -211,23 +210,16 @@ def _check_term(errors, where, term, d, kT, equilibrium):
     bad_curv = not np.all(np.isfinite(curv)) or (scale is not None and not np.all(
         (curv[[a for a in range(d) if _positive_axis(term, a)]] >= TINY)))
     if bad_row or bad_curv:
-        key, formula = scale if scale else ("stiffness", "stiffness")
-        value = getattr(term, key, None)
+        if scale:
+            key, formula = scale
+            value = getattr(term, key, None)
+            what = f"gives a curvature {formula} = {_show(curv.tolist())} N/m"
+        else:
+            key, value = "type", term.name
+            what = f"has parameters {_show(row.tolist())} or curvatures {_show(curv.tolist())}"
         _bad(errors, f"{where}.{key}", list(value) if isinstance(value, tuple) else value,
-             f"gives a curvature {formula} = {_show(curv.tolist())} N/m (overflows or "
-             "underflows in float64)", "values whose curvature is finite and above 1e-300 N/m")
-        return
-    if equilibrium and getattr(term, "separable", False):
-        for a in range(d):
-            try:
-                r = term.sampling_range(a, kT)
-            except (ZeroDivisionError, OverflowError):
-                r = (-math.inf, math.inf)
-            if r is not None and not (math.isfinite(r[0]) and math.isfinite(r[1]) and r[1] > r[0]):
-                _bad(errors, f"{where}", term.name, f"its equilibrium range on axis {a} is "
-                     f"{r[0]:.3g} .. {r[1]:.3g} m (overflows)",
-                     "lengths whose Boltzmann range is finite, or an initial point")
-                return
+             what + " (overflows or underflows in float64)",
+             "values whose curvature is finite and above 1e-300 N/m")
 
 
 def _positive_axis(term, a):

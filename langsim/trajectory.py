@@ -405,9 +405,14 @@ class FrameView:
             key, rest = (key[0], key[1:]) if key else (Ellipsis, ())
         frames = self._frames(key)
         ds = self.dataset
+        simple = all(isinstance(k, (int, np.integer, slice)) for k in rest)
         if isinstance(frames, int):
+            if simple:
+                return ds[(frames,) + rest]
             return ds[frames][rest] if rest else ds[frames]
         if isinstance(frames, range):
+            if len(frames) and frames.step > 0 and simple:   # read only what is asked for
+                return ds[(slice(frames.start, frames[-1] + 1, frames.step),) + rest]
             if len(frames) == 0:
                 data = ds[0:0]
             elif frames.step > 0:

@@ -15,7 +15,8 @@ import math
 import numpy as np
 from scipy import integrate, optimize, stats
 
-from .stats import Estimator, InsufficientDataError, integrated_autocorr_time, single_axis
+from .stats import (Estimator, FrameSource, InsufficientDataError, integrated_autocorr_time,
+                    single_axis)
 
 __all__ = ["boltzmann_weights", "equal_probability_edges", "boltzmann_test", "BoltzmannTest"]
 
@@ -76,12 +77,20 @@ def _bin_probabilities(potential, kT, support, edges):
     return np.diff(c)
 
 
+#: Frames (from the start) used to estimate the autocorrelation time that sets the
+#: default block length; the test itself streams over all frames.
+TAU_FRAMES = 1 << 20
+#: Most blocks (all particles) chosen by default: enough for the covariance of 10-20 bins,
+#: and the block counts stay small whatever the number of frames.
+MAX_BLOCKS = 4096
+
+
 def boltzmann_test(x, potential, kT, support, n_bins=10, n_blocks=None, dt=None):
     """Chi-square test of a pooled 1D position sample against exp(-U/kT).
 
     Parameters
     ----------
-    x : (frames, particles) or (frames,) array, m
+    x : (frames, particles) or (frames,) array, m (or a lazily sliced array-like)
     potential : callable U(x), J; kT : J; support : (low, high), m
     n_bins : int, equal-probability bins
     n_blocks : int or None, time blocks per particle (default: blocks of at
@@ -92,20 +101,28 @@ def boltzmann_test(x, potential, kT, support, n_bins=10, n_blocks=None, dt=None)
     dict: statistic (chi-square with block covariance), dof, p_value, edges,
     probabilities, observed (fractions), errors, n_eff (per bin), n_blocks.
     """
-    x = np.asarray(x, dtype=float)
-    if x.ndim == 1:
-        x = x[:, None]
-    if x.ndim != 2:
-        raise ValueError(f"x must have shape (frames,) or (frames, particles), got {x.shape}")
-    n, P = x.shape
+    shape = getattr(x, "shape", None)
+    if shape is None:
+        x = np.asarray(x, dtype=float)
+        shape = x.shape
+    if len(shape) not in (1, 2):
+        raise ValueError(f"x must have shape (frames,) or (frames, particles), got {tuple(shape)}")
+    return _stream_test(FrameSource(x, name="x"), 0, potential, kT, support, n_bins, n_blocks)
+
+
+def _stream_test(src, start, potential, kT, support, n_bins, n_blocks):
+    """The test of :func:`boltzmann_test` over ``src`` (one axis), read slice by slice."""
+    n, P = src.n_frames - start, src.n_particles
     q = int(n_bins) - 1
     edges = equal_probability_edges(potential, kT, support, n_bins)
     probs = _bin_probabilities(potential, kT, support, edges)
     if n_blocks is None:
+        head = min(n, TAU_FRAMES)
         taus = []
         for j in range(min(P, 4)):
             try:
-                taus.append(integrated_autocorr_time(x[:, j], min_factor=10.0))
+                taus.append(integrated_autocorr_time(src.column(j, start, start + head)[:, 0],
+                                                     min_factor=10.0))
             except InsufficientDataError as e:
                 taus.append(e.estimate)
         tau = max(taus)
@@ -117,14 +134,19 @@ def boltzmann_test(x, potential, kT, support, n_bins=10, n_blocks=None, dt=None)
                 f"{per * P} independent blocks, fewer than 3 n_bins = {3 * n_bins}; about "
                 f"{int(math.ceil(need * 10 * tau))} frames per particle would be enough",
                 estimate=tau, required_length=int(math.ceil(need * 10 * tau)), length=n)
-        n_blocks = per
-    B = int(n_blocks) * P
+        n_blocks = min(per, max(need, MAX_BLOCKS // P))   # longer blocks beyond MAX_BLOCKS
+    n_blocks = int(n_blocks)
+    B = n_blocks * P
     if B <= q + 1:
         raise ValueError(f"n_blocks x particles = {B} must exceed n_bins = {n_bins}")
-    L = n // int(n_blocks)
-    idx = np.searchsorted(edges, x[:L * int(n_blocks)], side="right")  # (frames, particles)
-    idx = idx.reshape(int(n_blocks), L, P)
-    frac = np.stack([(idx == b).mean(axis=1) for b in range(n_bins)], axis=-1).reshape(B, n_bins)
+    L = n // n_blocks
+    counts = np.zeros((n_blocks, P, n_bins))
+    for a, blk in src.chunks(start, start + L * n_blocks):
+        idx = np.searchsorted(edges, blk[:, :, 0], side="right")        # (frames, particles)
+        block = (a - start + np.arange(idx.shape[0])) // L
+        flat = (block[:, None] * P + np.arange(P)[None, :]) * n_bins + idx
+        counts += np.bincount(flat.ravel(), minlength=counts.size).reshape(counts.shape)
+    frac = (counts / L).reshape(B, n_bins)
     obs = frac.mean(axis=0)
     S = np.cov(frac[:, :q], rowvar=False, ddof=1) / B
     d = obs[:q] - probs[:q]
@@ -163,8 +185,8 @@ class BoltzmannTest(Estimator):
 
     def fit(self, positions):
         src, start = single_axis(positions, self.axis, self.start)
-        x = np.concatenate([blk[:, :, 0] for _, blk in src.chunks(start)])
-        r = boltzmann_test(x, self.potential, self.kT, self.support, self.n_bins, self.n_blocks)
+        r = _stream_test(src, start, self.potential, self.kT, self.support, self.n_bins,
+                         self.n_blocks)
         for k, v in r.items():
             setattr(self, k + "_", v)
         return self

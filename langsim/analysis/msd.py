@@ -12,7 +12,8 @@ import math
 import numpy as np
 from scipy import fft as sp_fft
 
-from .stats import Estimator, FrameSource, InsufficientDataError, blocking, single_axis
+from .stats import (Estimator, FrameSource, InsufficientDataError, block_means, blocking,
+                    single_axis)
 
 __all__ = ["msd_fft", "msd_direct", "msd_at_lags", "mean_msd", "velocity_autocorrelation",
            "lag_autocorrelation", "MSD", "RelaxationStiffness"]
@@ -71,20 +72,23 @@ def msd_direct(x, max_lag=None):
     return out[:, 0] if squeeze else out
 
 
-def mean_msd(positions, max_lag=None, start=0):
+def mean_msd(positions, max_lag=None, start=0, stop=None, particles=None):
     """Particle-averaged MSD per axis by FFT, lags 0..max_lag frames.
 
     Each particle's trajectory is read column by column (frames x dims in
-    memory at a time). Returns (lags+1,) or (lags+1, dims).
+    memory at a time); ``stop`` (frame) and ``particles`` (the first so many)
+    bound what is read. Returns (lags+1,) or (lags+1, dims).
     """
     src = FrameSource(positions)
     start = src.check_start(start)
-    n = src.n_frames - start
+    stop = src.n_frames if stop is None else min(int(stop), src.n_frames)
+    n = stop - start
     L = _max_lag(n, max_lag)
     acc = np.zeros((L + 1, src.n_dims))
-    for p in range(src.n_particles):
-        acc += msd_fft(src.column(p, start), L)
-    return src.out(acc / src.n_particles)
+    used = src.n_particles if particles is None else max(1, min(int(particles), src.n_particles))
+    for p in range(used):
+        acc += msd_fft(src.column(p, start, stop), L)
+    return src.out(acc / used)
 
 
 def msd_at_lags(positions, lags, start=0, min_blocks=16, min_replicas=16):
@@ -113,27 +117,50 @@ def msd_at_lags(positions, lags, start=0, min_blocks=16, min_replicas=16):
             or not np.all(lags == np.round(lags)):
         raise ValueError(f"lags must be a 1D list of integers in [1, {n - 2}], got {lags!r}")
     lags = lags.astype(int)
-    cols = [src.column(p, start) for p in range(src.n_particles)]
     msd = np.empty((lags.size, src.n_dims))
     err = np.empty_like(msd)
-    replicas = len(cols) >= min_replicas
+    replicas = src.n_particles >= min_replicas
     for i, m in enumerate(lags):
-        if replicas:
-            q = np.array([np.mean((c[m:] - c[:-m]) ** 2, axis=0) for c in cols])
-            msd[i], err[i] = q.mean(axis=0), q.std(axis=0, ddof=1) / math.sqrt(len(cols))
+        squares = _LagSquares(src, m)
+        if replicas:         # per-particle time averages, streamed: O(chunk) memory
+            total = np.zeros((src.n_particles, src.n_dims))
+            for _, blk in squares.chunks(start):
+                total += blk.sum(axis=0)
+            q = total / (squares.n_frames - start)
+            msd[i], err[i] = q.mean(axis=0), q.std(axis=0, ddof=1) / math.sqrt(len(q))
             continue
-        s = sum((c[m:] - c[:-m]) ** 2 for c in cols) / len(cols)
+        means, base, used, naive = block_means(squares, start)
+        exact = sum(blk.mean(axis=1).sum(axis=0) for _, blk in squares.chunks(start))
         for a in range(src.n_dims):
             try:
-                r = blocking(s[:, a], min_blocks=min_blocks)
+                r = blocking(means[:, a], base, used, naive[a, a], min_blocks=min_blocks)
             except InsufficientDataError as e:
                 need = (e.required_length or 0) + m
                 raise InsufficientDataError(
                     f"MSD at lag {m} frames: {e}; that is about {need} frames per particle from frame "
                     f"{start} (or at least {min_replicas} particles, whose independence gives the error)",
                     estimate=e.estimate, required_length=need, length=n) from None
-            msd[i, a], err[i, a] = r.mean, r.error
+            msd[i, a], err[i, a] = exact[a] / (squares.n_frames - start), r.error
     return src.out(msd), src.out(err)
+
+
+class _LagSquares(FrameSource):
+    """Squared displacements (x_{j+m} - x_j)^2 of a FrameSource as a FrameSource of
+    n_frames - m frames; each slice reads two slices of the source (O(chunk) memory)."""
+
+    def __init__(self, src, lag):
+        self.src, self.lag = src, int(lag)
+        self.data, self.name, self.axis = None, src.name, None
+        self.shape = (src.n_frames - self.lag, src.n_particles, src.n_dims)
+        self.n_frames, self.n_particles, self.n_dims = self.shape
+        self.vector = src.vector
+
+    def chunk_frames(self, particles=None):
+        return max(1, self.src.chunk_frames(particles) // 2)
+
+    def read(self, a, b, particles=None):
+        d = self.src.read(a + self.lag, b + self.lag, particles) - self.src.read(a, b, particles)
+        return d * d
 
 
 def velocity_autocorrelation(velocities, max_lag=None, start=0):

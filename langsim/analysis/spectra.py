@@ -62,12 +62,16 @@ def segment_averaged_periodogram(positions, dt, segment_length, start=0, axis=No
                          f"got {segment_length!r}")
     acc = np.zeros(N // 2)
     stop = start + n_seg * N
-    for _, blk in src.chunks(start, stop, chunk=N * max(1, (1 << 20) // (N * src.n_particles))):
-        x = blk[:, :, 0]
-        m = x.shape[0] // N
-        seg = x[:m * N].reshape(m, N, -1)
-        F = np.fft.rfft(seg, axis=1)[:, 1:N // 2 + 1]
-        acc += (np.abs(F) ** 2).sum(axis=(0, 2))
+    group = max(1, (1 << 20) // N)              # particles per pass: ~2^20 values in memory
+    for p0 in range(0, src.n_particles, group):
+        p1 = min(src.n_particles, p0 + group)
+        step = N * max(1, (1 << 20) // (N * (p1 - p0)))
+        for a in range(start, stop, step):
+            x = src.read(a, min(stop, a + step), slice(p0, p1))[:, :, 0]
+            m = x.shape[0] // N
+            seg = x[:m * N].reshape(m, N, -1)
+            F = np.fft.rfft(seg, axis=1)[:, 1:N // 2 + 1]
+            acc += (np.abs(F) ** 2).sum(axis=(0, 2))
     count = n_seg * src.n_particles
     P = acc * dt / N / count
     f = np.arange(1, N // 2 + 1) / (N * dt)

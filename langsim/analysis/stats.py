@@ -26,8 +26,10 @@ __all__ = ["InsufficientDataError", "NotFittedError", "FrameSource", "autocovari
            "integrated_autocorr_time", "BlockingResult", "blocking", "block_means",
            "blocked_mean"]
 
-#: Frames read per slice by the streaming estimators.
+#: Most frames read per slice by the streaming estimators ...
 CHUNK_FRAMES = 1 << 18
+#: ... and most bytes of float64 per slice: memory stays O(this) whatever the file size.
+CHUNK_BYTES = 32 * 2**20
 
 
 class InsufficientDataError(ValueError):
@@ -113,12 +115,24 @@ class FrameSource:
         #: True when results carry a trailing dims axis
         self.vector = len(shape) == 3 and self.axis is None
 
-    def read(self, a, b):
-        """Frames a..b-1 as float64 of shape (b - a, particles, dims)."""
-        block = np.asarray(self.data[a:b], dtype=np.float64)
-        if self.axis is not None:
-            block = block[:, :, self.axis]
-        block = block.reshape(b - a, self.n_particles, -1)
+    def chunk_frames(self, particles=None):
+        """Frames per slice: at most CHUNK_FRAMES and CHUNK_BYTES of float64."""
+        width = (self.n_particles if particles is None else particles) * self.n_dims * 8
+        return int(max(1, min(CHUNK_FRAMES, CHUNK_BYTES // max(1, width))))
+
+    def read(self, a, b, particles=None):
+        """Frames a..b-1 as float64 of shape (b - a, particles, dims); ``particles`` a slice
+        of particles (default all). Only the kept axis and particles are read."""
+        sel = slice(None) if particles is None else particles
+        if len(self.shape) == 1:
+            block = np.asarray(self.data[a:b], dtype=np.float64)
+        else:
+            key = (slice(a, b), sel) + ((self.axis,) if self.axis is not None else ())
+            try:
+                block = np.asarray(self.data[key], dtype=np.float64)
+            except (TypeError, IndexError, ValueError):   # an array-like sliced by frames only
+                block = np.asarray(self.data[a:b], dtype=np.float64)[(slice(None),) + key[1:]]
+        block = block.reshape(b - a, -1 if len(self.shape) > 1 else 1, self.n_dims)
         if not np.all(np.isfinite(block)):
             raise ValueError(f"{self.name} contains non-finite values in frames {a}..{b - 1}")
         return block
@@ -129,7 +143,7 @@ class FrameSource:
         Consecutive slices share ``overlap`` frames (for lagged products).
         """
         stop = self.n_frames if stop is None else stop
-        chunk = max(CHUNK_FRAMES if chunk is None else int(chunk), overlap + 1)
+        chunk = max(self.chunk_frames() if chunk is None else int(chunk), overlap + 1)
         a = start
         while a < stop:
             b = min(stop, a + chunk + overlap)
@@ -141,7 +155,10 @@ class FrameSource:
     def column(self, particle, start=0, stop=None):
         """All frames of one particle as (frames, dims), read slice by slice."""
         stop = self.n_frames if stop is None else stop
-        return np.concatenate([blk[:, particle, :] for _, blk in self.chunks(start, stop)])
+        step = self.chunk_frames(particles=1)
+        p = slice(particle, particle + 1)
+        return np.concatenate([self.read(a, min(stop, a + step), p)[:, 0, :]
+                               for a in range(start, stop, step)])
 
     def out(self, values):
         """Drop the dims axis of a result when the input had none."""
@@ -323,7 +340,8 @@ def block_means(source, start=0, stop=None, max_blocks=1 << 16, transform=None):
     s1, s2 = None, None
     carry = None
     out = []
-    for _, blk in source.chunks(start, start + used, chunk=base * max(1, CHUNK_FRAMES // base)):
+    for _, blk in source.chunks(start, start + used,
+                                chunk=base * max(1, source.chunk_frames() // base)):
         y = transform(blk)
         if carry is not None:
             y = np.concatenate([carry, y])
