@@ -173,6 +173,9 @@ def read(source):
             return tomllib.loads(text), path
         except tomllib.TOMLDecodeError as exc:
             raise ConfigError(f"{path}: not valid TOML: {exc}") from None
+        except ValueError as exc:       # an integer beyond Python's digit limit for str -> int
+            raise ConfigError(f"{path}: a value the TOML parser cannot convert ({exc}); expected "
+                              "numbers of at most a few hundred digits") from None
         except (RecursionError, MemoryError):
             raise ConfigError(f"{path}: too deeply nested or too large to parse; expected a "
                               "plain config file") from None

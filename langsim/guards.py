@@ -32,6 +32,9 @@ MAX_CONFIG_BYTES = 16 * 2**20
 MAX_TOML_NESTING = 32
 #: Parts of one dotted key or table header in a TOML file.
 MAX_KEY_PARTS = 32
+#: Characters of one bare TOML value (a longer integer would fail inside the parser:
+#: Python converts at most 4300 digits).
+MAX_NUMBER_CHARS = 1000
 #: Fraction of the available memory a run may plan to use.
 MEMORY_FRACTION = 0.9
 
@@ -89,6 +92,11 @@ def _scan_toml(text, where):
         if kind in ("comment", "other") and (kind == "comment" or not tok.strip()):
             continue
         if kind != "punct":
+            if kind == "other" and len(tok) > MAX_NUMBER_CHARS and not key_mode:
+                key = text.splitlines()[line - 1].split("=")[0].strip()[:60]
+                raise ConfigError(f"{where}: line {line}: {key} = a number written with "
+                                  f"{len(tok)} digits; expected a number of at most "
+                                  f"{MAX_NUMBER_CHARS} digits")
             line_start = False
             continue
         if tok == "." and key_mode:

@@ -175,6 +175,10 @@ def path_like(value):
     value = plain(value)
     if not isinstance(value, str) or not value.strip():
         raise Invalid("a non-empty string (a file name)")
+    import unicodedata
+    bad = [c for c in value if unicodedata.category(c) == "Cc"]
+    if bad:         # refused here too, so that a config is wrong whatever -o says
+        raise Invalid(f"a file name without control characters (this one holds {bad[0]!r})")
     return str(value)
 
 
