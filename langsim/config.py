@@ -172,7 +172,8 @@ def read(source):
         try:
             return tomllib.loads(text), path
         except tomllib.TOMLDecodeError as exc:
-            raise ConfigError(f"{path}: not valid TOML: {exc}") from None
+            raise ConfigError(f"{path}: not valid TOML: {exc}; expected TOML text (key = value "
+                              "lines under [table] headers, as in configs/)") from None
         except ValueError as exc:       # an integer beyond Python's digit limit for str -> int
             raise ConfigError(f"{path}: a value the TOML parser cannot convert ({exc}); expected "
                               "numbers of at most a few hundred digits") from None

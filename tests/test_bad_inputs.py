@@ -14,6 +14,7 @@ import shutil
 import signal
 import subprocess
 import sys
+import warnings
 from contextlib import contextmanager
 from pathlib import Path
 
@@ -21,7 +22,9 @@ import h5py
 import numpy as np
 import pytest
 
+import langsim
 from langsim import cli
+from langsim.validation import ConfigError
 
 CORPUS = Path(__file__).parent / "data" / "bad-inputs"
 CASES = json.loads((CORPUS / "cases.json").read_text())
@@ -150,6 +153,12 @@ def damage(path, mutations):
                 raise ValueError(kind)
 
 
+def verb_args(verb, config, path):
+    """Command line of ``verb`` ("info", "check", "resume") on the file at ``path``."""
+    return {"info": ["info", path], "check": ["check", path],
+            "resume": ["run", config, "-o", path, "--resume", "--quiet"]}[verb]
+
+
 def _damaged_cases():
     for case in CASES["damaged"]:
         for verb in ("info", "check", "resume"):
@@ -164,9 +173,7 @@ def test_damaged_file_exits_2_naming_the_item_and_stays_as_it_was(case, verb, go
     shutil.copyfile(good, path)
     damage(path, case["mutate"])
     before = path.read_bytes()
-    args = {"info": ["info", path], "check": ["check", path],
-            "resume": ["run", config, "-o", path, "--resume", "--quiet"]}[verb]
-    code, err = run_cli(args, capsys)
+    code, err = run_cli(verb_args(verb, config, path), capsys)
     assert_usage_message(code, err, case["expect"])
     assert str(path) in err                         # the message names the file
     assert path.read_bytes() == before, "a damaged file was changed"
@@ -195,3 +202,82 @@ def test_the_installed_command_exits_2_without_a_traceback(tmp_path):
                           timeout=300)
     assert_usage_message(proc.returncode, proc.stderr, case["expect"])
     assert not (tmp_path / "out.h5").exists()
+
+
+# --------------------------------------------------------- through the Python API
+
+SMALL = {"seed": 1, "particles": {"friction": 1e-8, "count": 2, "dimensions": 1, "initial": [0.0]},
+         "dynamics": {"dt": 1e-5, "steps": 20}}
+
+
+def test_a_function_term_numba_cannot_compile_is_refused_before_a_file_exists(tmp_path):
+    def energy(x, t, force):
+        return {}.get(1)                    # numba cannot type an empty dict
+    out = tmp_path / "out.h5"
+    with pytest.raises(ConfigError, match=r"potential\[0\]\.function.*numba"):
+        with time_limit():
+            langsim.run({**SMALL, "potential": [{"type": "function", "function": energy}]},
+                        out=out, progress=False)
+    assert os.listdir(tmp_path) == []
+
+
+def test_a_pole_at_the_start_point_ends_with_the_blow_up_status():
+    """1/x at x = 0: the run ends with status blow-up naming particle and step (README
+    "Guard rails"), not an exception; the wrong-input side is a start away from the pole."""
+    cfg = {**SMALL, "potential": [{"type": "expression", "energy": "1e-30/x"}]}
+    with warnings.catch_warnings(), time_limit(300):
+        warnings.simplefilter("ignore")
+        traj = langsim.run(cfg, progress=False)
+        assert traj.status.reason == "blow-up" and traj.status.step == 1
+        assert traj.status.particle in (0, 1)
+        away = langsim.run({**cfg, "particles": {**cfg["particles"], "initial": [1e-3]}},
+                           progress=False)
+    assert away.status.reason == "complete" and np.all(np.isfinite(away.positions))
+
+
+def test_a_huge_every_does_not_make_one_kernel_call_cover_a_frame():
+    """every = 10^7 steps per frame: kernel calls stay within CHUNK_PARTICLE_STEPS, so
+    checkpoints and Ctrl-C come between calls inside one frame."""
+    from langsim.engine import CHUNK_PARTICLE_STEPS
+    count, every = 4, 10**7
+    calls = []
+    cfg = {**SMALL, "particles": {**SMALL["particles"], "count": count},
+           "potential": [{"type": "harmonic", "stiffness": 1e-7}],
+           "dynamics": {"dt": 1e-5, "steps": every}, "output": {"every": every}}
+    with time_limit(300):
+        traj = langsim.run(cfg, progress=lambda step, n: calls.append(step))
+    assert traj.n_frames == 2 and calls[-1] == every
+    chunks = np.diff([0] + calls)
+    assert chunks.max() <= CHUNK_PARTICLE_STEPS // count
+    assert len(calls) >= every * count // CHUNK_PARTICLE_STEPS
+
+
+def test_check_reads_a_file_in_bounded_slices(tmp_path, monkeypatch):
+    """langsim check never reads the whole positions dataset at once: with slices of
+    32 KiB (streamed estimators) and 4096 values per periodogram pass, no read exceeds a
+    quarter of the dataset, and none goes through numpy.asarray of the whole view."""
+    from langsim import checks, trajectory
+    from langsim.analysis import spectra, stats
+    n_particles, steps = 8, 20000
+    cfg = {"seed": 5, "particles": {"friction": 1e-8, "count": n_particles, "dimensions": 1},
+           "potential": [{"type": "harmonic", "stiffness": 1e-6}],
+           "dynamics": {"dt": 1e-3, "steps": steps, "scheme": "exact"}}
+    path = tmp_path / "long.h5"
+    with time_limit(300):
+        langsim.run(cfg, out=path, progress=False).close()
+    reads = []
+    original = trajectory.FrameView.__getitem__
+
+    def recording(self, key):
+        out = original(self, key)
+        reads.append(np.asarray(out).nbytes)
+        return out
+    monkeypatch.setattr(trajectory.FrameView, "__getitem__", recording)
+    monkeypatch.setattr(trajectory.FrameView, "__array__", None)   # whole-array reads fail
+    monkeypatch.setattr(stats, "CHUNK_BYTES", 32 * 2**10)
+    monkeypatch.setattr(spectra, "PERIODOGRAM_VALUES", 4096)
+    with langsim.load(path) as traj, time_limit(300):
+        report = checks.check(traj)
+    whole = (steps + 1) * n_particles * 8
+    assert any(r.key.startswith("variance") for r in report.rows)
+    assert reads and max(reads) <= whole // 4, (max(reads), whole)

@@ -36,6 +36,10 @@ __all__ = ["segment_averaged_periodogram", "fit_psd_model", "scheme_psd", "schem
            "LorentzianFit", "OscillatorFit", "MODELS", "SCHEMES"]
 
 
+#: Position values the periodogram holds at once (2^20 float64: 8 MiB), whatever the data's size.
+PERIODOGRAM_VALUES = 1 << 20
+
+
 def segment_averaged_periodogram(positions, dt, segment_length, start=0, axis=None):
     """Periodogram averaged over non-overlapping segments and particles.
 
@@ -62,10 +66,10 @@ def segment_averaged_periodogram(positions, dt, segment_length, start=0, axis=No
                          f"got {segment_length!r}")
     acc = np.zeros(N // 2)
     stop = start + n_seg * N
-    group = max(1, (1 << 20) // N)              # particles per pass: ~2^20 values in memory
+    group = max(1, PERIODOGRAM_VALUES // N)     # particles per pass
     for p0 in range(0, src.n_particles, group):
         p1 = min(src.n_particles, p0 + group)
-        step = N * max(1, (1 << 20) // (N * (p1 - p0)))
+        step = N * max(1, PERIODOGRAM_VALUES // (N * (p1 - p0)))
         for a in range(start, stop, step):
             x = src.read(a, min(stop, a + step), slice(p0, p1))[:, :, 0]
             m = x.shape[0] // N
