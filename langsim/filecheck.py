@@ -342,7 +342,8 @@ def _groups(r, f, cp_group, state, slot):
                 r.fail(prefix + key, f"{shape[0]} rows", f"at least {n} rows (the frames "
                        f"{name}/n_frames says are valid)")
             data.append(key)
-        if slot >= 0:
+        # a complete file needs no checkpoint counters of its groups (a resume does)
+        if slot >= 0 and (state != "complete" or f"{name}.n_frames" in cp_group.attrs):
             cp_frames = r.integer(cp_group, f"{name}.n_frames", 0, prefix="checkpoint/")
             stored, tail = _counters(r, cp_group, name, cp_frames)
             if time.shape[0] < cp_frames:
