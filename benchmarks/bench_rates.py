@@ -43,6 +43,7 @@ def exact_mfpt(depth):
 
 def main(depths=(10.0, 15.0, 20.0, 25.0)):
     langsim.escape_rate(config(5.0, precision=0.5))       # compile / load the kernels first
+    load = os.getloadavg()[0]                             # the VM is shared: say how busy it was
     t0 = time.perf_counter()
     base = langsim.escape_rate(config(10.0, method="direct"))
     direct_ns = 1e9 * (time.perf_counter() - t0) / base.steps
@@ -62,7 +63,7 @@ def main(depths=(10.0, 15.0, 20.0, 25.0)):
                      "direct_wall_s": direct_steps * direct_ns * 1e-9,
                      "speedup_steps": direct_steps / r.steps})
     print(f"direct counting measured at 10 kT: {base.steps:,} particle-steps to a {base.precision:.3f} "
-          f"half-width, {direct_ns:.0f} ns per particle-step (wall, 2 cores shared)")
+          f"half-width, {direct_ns:.0f} ns per particle-step (wall, 2 cores shared; load {load:.1f} at start)")
     print(f"{'depth':>6} {'method':>7} {'particle-steps':>15} {'wall (s)':>9} {'half-width':>10} {'z':>6} "
           f"{'direct steps':>13} {'direct wall':>12} {'steps saved':>11}")
     for x in rows:
@@ -70,7 +71,7 @@ def main(depths=(10.0, 15.0, 20.0, 25.0)):
               f"{x['precision']:>10.3f} {x['z']:>+6.2f} {x['direct_steps']:>13.3g} "
               f"{x['direct_wall_s']:>10.3g} s {x['speedup_steps']:>11.3g}")
     out = {"machine": platform.platform(), "cpus": os.cpu_count(), "numpy": np.__version__,
-           "precision": PRECISION, "direct_ns_per_particle_step": direct_ns,
+           "load_average_1min": load, "precision": PRECISION, "direct_ns_per_particle_step": direct_ns,
            "direct_baseline": {"depth_kT": 10.0, "steps": base.steps, "precision": base.precision}, "rows": rows}
     path = os.path.join(os.path.dirname(os.path.abspath(__file__)), "results", "rates.json")
     os.makedirs(os.path.dirname(path), exist_ok=True)

@@ -106,6 +106,20 @@ def test_interval_coverage_over_40_seeds():
     assert stats.binom.sf(shrunk - 1, 40, 0.05) < 1e-3, shrunk
 
 
+def test_direct_interval_coverage_over_40_seeds():
+    # the direct method's exact Poisson interval (events per time at risk; Garwood 1936 chi-square limits,
+    # common practice) at 4 kT, 16 walkers, must hold the exact value in 95 % of 40 seeds within binomial
+    # error (Binomial(40, 0.05): fail if P(>= misses) < 1e-3), and intervals a third as wide must fail
+    k = exact_1d(4.0)
+    results = [escape_rate(double_well(4.0, 2e-3, precision=0.4, method="direct", walkers=16, seed=300 + s))
+               for s in range(40)]
+    assert all(r.method == "direct" and r.converged for r in results)
+    misses = sum(not (r.rate_low <= k <= r.rate_high) for r in results)
+    assert stats.binom.sf(misses - 1, 40, 0.05) >= 1e-3, misses
+    shrunk = sum(abs(math.log(r.rate / k)) > (math.log(r.rate_high) - math.log(r.rate_low)) / 6 for r in results)
+    assert stats.binom.sf(shrunk - 1, 40, 0.05) < 1e-3, shrunk
+
+
 def test_first_passage_between_steps_bridge_and_two_step_sizes():
     # target at the barrier top of a 5 kT double well, where paths cross and come back between steps:
     # with the Brownian-bridge test the rate is the same at dt = 4e-3 and 1e-3 (and exact); without it
