@@ -23,6 +23,7 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
+from numpy.lib.mixins import NDArrayOperatorsMixin
 
 
 @dataclass
@@ -348,11 +349,13 @@ def _chunks(frame_shape, itemsize, n_frames):
     return (max(1, min(n_frames, CHUNK_TARGET_BYTES // frame)),) + frame_shape
 
 
-class FrameView:
+class FrameView(NDArrayOperatorsMixin):
     """A stored dataset seen through its first ``n_frames`` frames (read lazily).
 
     Supports ``shape``, ``dtype``, ``len``, slicing and ``numpy.asarray``;
-    each slice reads only the frames it asks for.
+    each slice reads only the frames it asks for. Arithmetic and numpy functions
+    (``traj.time * 1e3``, ``np.mean(traj.positions, axis=0)``) read the whole
+    dataset and give plain arrays.
     """
 
     def __init__(self, dataset, n_frames):
@@ -428,6 +431,10 @@ class FrameView:
     def __array__(self, dtype=None, copy=None):
         data = self.dataset[:self.n_frames]
         return data if dtype is None else data.astype(dtype)
+
+    def __array_ufunc__(self, ufunc, method, *inputs, **kwargs):
+        inputs = tuple(np.asarray(x) if isinstance(x, FrameView) else x for x in inputs)
+        return getattr(ufunc, method)(*inputs, **kwargs)
 
     def __repr__(self):
         return f"<FrameView {self.shape} {self.dtype} of {self.dataset.name!r}>"

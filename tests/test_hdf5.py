@@ -142,6 +142,10 @@ def test_load_reads_lazily_and_slices_like_numpy(tmp_path):
             np.testing.assert_array_equal(traj.positions[key], mem.positions[key], err_msg=str(key))
         with pytest.raises(IndexError):
             traj.positions[1001]
+        # arithmetic and numpy functions act as on the arrays (numpy is the reference)
+        np.testing.assert_array_equal(traj.time * 1e3, np.asarray(mem.time) * 1e3)
+        np.testing.assert_array_equal(1e9 * traj.positions - mem.positions, 1e9 * mem.positions - mem.positions)
+        np.testing.assert_array_equal(np.mean(traj.positions, axis=0), np.mean(mem.positions, axis=0))
         assert traj.config["seed"] == 9 and traj.status.complete
     assert traj._file is None
 
