@@ -537,6 +537,9 @@ def check(traj, z_threshold=4.5, min_events=20, transient_factor=10.0):
         rows, notes = gaussian_well_rows(traj, s.kT, s.friction, s.frame_dt, s.regime)
         report.rows.extend(Row(**r) for r in rows)
         report.notes.extend(notes)
+    if "measurement" in traj.config:       # camera and detector rows
+        from .measurement.checks import measurement_rows
+        measurement_rows(report, traj, s, kw)
     return report
 
 

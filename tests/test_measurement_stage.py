@@ -81,6 +81,11 @@ def test_blurred_trap_variance_against_wong_halvorsen():
     assert abs(v.mean() - KT / k) > Z * se       # the unblurred variance kT/k fails
     est = BlurredTrap(KT, tau, tau, center=0.0).fit(x)
     assert abs(est.stiffness_ - k) <= Z * est.stiffness_err_
+    traj.measured = out                          # langsim check: blurred variance and stiffness rows
+    rows = {r.quantity: r for r in langsim.check(traj).rows}
+    assert rows["blurred variance x"].status == "pass" and rows["stiffness x (blurred trap)"].status == "pass"
+    traj.measured = dict(out, true_positions=1.05 * out["true_positions"])
+    assert {r.quantity: r for r in langsim.check(traj).rows}["blurred variance x"].status == "fail"
 
 
 def test_blinking_bleaching_drift_and_localization_error():
@@ -143,3 +148,28 @@ def test_stage_state_round_trip_is_bit_identical():
     assert whole["images"].dtype == np.uint16 and whole["images"].shape == (frames, 32, 32)
     with pytest.raises(ValueError, match="in order"):
         second.process(3, avg[:1], path[:1])
+
+
+def test_check_rows_of_a_measured_run():
+    # langsim.check on a run with a camera: displacement moments, estimators, background photons
+    cfg = {"seed": 23, "particles": {"count": 60, "dimensions": 2, "friction": 1e-8,
+                                     "initial": {"box": [[-3e-6, 3e-6], [-3e-6, 3e-6]]}},
+           "dynamics": {"dt": 1e-3, "steps": 3000},
+           "measurement": {"frame_rate": 100.0, "exposure": 0.006, "localization_error": 25e-9,
+                           "drift_velocity": [3e-7, 0.0], "photons": 1500.0, "pixel_size": 100e-9,
+                           "image_shape": [96, 96], "psf_sigma": 130e-9, "background": 4.0, "gain": 2.0,
+                           "read_noise": 1.2}}
+    spec = config.load(cfg)
+    traj = langsim.run(cfg, progress=False)
+    traj.measured = measure(np.asarray(traj.positions), spec.measurement, spec.seed)
+    report = langsim.check(traj)
+    keys = {r.quantity: r for r in report.rows}
+    for q in ("displacement variance x", "displacement lag-1 covariance y", "D (covariance estimator)",
+              "localization variance (optimal MSD fit)", "background mean", "background variance"):
+        assert keys[q].status == "pass", (q, keys[q])
+    # a wrong localization error in the file is caught
+    traj.measured = dict(traj.measured, positions=traj.measured["positions"] + 25e-9 * np.random.default_rng(
+        1).standard_normal(traj.measured["positions"].shape))
+    bad = {r.quantity: r for r in langsim.check(traj).rows}
+    assert bad["displacement variance x"].status == "fail"
+    assert bad["localization variance (covariance estimator)"].status == "fail"
