@@ -20,6 +20,7 @@ particles as independent replicas; pass within 4.5 standard errors):
   signal's spectrum with the detector model (corner frequency free, D = kT/gamma known).
 """
 import math
+import warnings
 
 import numpy as np
 
@@ -43,6 +44,13 @@ def _taps(m, dt):
     exposure = int(round(m["exposure"] / dt))
     w, o = shutter_taps(m["shutter"], exposure, m.get("pulses", 1))
     return w, o, period
+
+
+def _nanmean(x, axis=0):
+    """Mean over finite values; NaN (without a warning) for a particle never seen."""
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)
+        return np.nanmean(x, axis=axis)
 
 
 def _replica_row(_row, quantity, per, pred, formula, source, unit, kw, note=""):
@@ -84,10 +92,10 @@ def measurement_rows(report, traj, s, kw):
             sv, cv = formulas.displacement_moments(D, interval, sig[a] ** 2, R)
             form = f"R = {R:.5g} (recorder taps), sigma = {sig[a]:.4g} m"
             report.rows.append(_replica_row(_row, f"displacement variance {AXES[a]}",
-                                            np.nanmean(dx * dx, axis=0), sv, "2 D Dt (1 - 2R) + 2 sigma^2; " + form,
+                                            _nanmean(dx * dx), sv, "2 D Dt (1 - 2R) + 2 sigma^2; " + form,
                                             SRC_BLUR, "m^2", kw))
             report.rows.append(_replica_row(_row, f"displacement lag-1 covariance {AXES[a]}",
-                                            np.nanmean(dx[1:] * dx[:-1], axis=0), cv,
+                                            _nanmean(dx[1:] * dx[:-1]), cv,
                                             "2 R D Dt - sigma^2; " + form, SRC_BLUR, "m^2", kw))
         if free:
             from ..analysis import CovarianceDiffusion, OptimalMSDFit

@@ -24,9 +24,11 @@ clipped to 0 .. 2**bit_depth - 1 (``gain`` is counts per photoelectron overall).
 Every variate is counter-based: Philox4x64-10 [2] keyed by the run's
 measurement stream, with the counter (frame, pixel, purpose and draw, stream
 tag), so a frame is a pure function of the seed and its inputs: a resumed run
-renders the same bits. Poisson variates use inversion below a mean of 10 and
-the transformed rejection of Hormann [3] above; Gamma variates the method of
-Marsaglia and Tsang [4].
+renders the same bits. Poisson variates use inversion (through a guide table of
+the background's law for pixels that see background only, sequential search
+below a mean of 10 elsewhere) and the transformed rejection of Hormann [3]
+above; Gamma variates the method of Marsaglia and Tsang [4]. A pixel's read
+noise takes the spare words of its photon block when inversion left them unused.
 
 References
 ----------
@@ -162,7 +164,7 @@ def _window(edge0, pixel, n_pix, center, sigma):
 
 @njit(cache=True, parallel=True)
 def _render(spots, rows, cols, x0, y0, pixel, background, frame, k0, k1, noise, em_gain, read_noise,
-            conv, baseline, top, out_mu, out_counts):
+            conv, baseline, top, table, guide, out_mu, out_counts):
     """Expected image (out_mu) and, with ``noise``, camera counts (out_counts) of one frame.
 
     spots: (n, 4) rows of (x, y, sigma, amplitude = photons x weight), one per emitter path sample.
@@ -199,15 +201,44 @@ def _render(spots, rows, cols, x0, y0, pixel, background, frame, k0, k1, noise, 
             for i in range(r0, r1):
                 for j in range(cols):
                     pix = i * cols + j
-                    n = poisson(out_mu[i, j], k0, k1, frame, pix, PHOTONS)
+                    mu = out_mu[i, j]
+                    w0, w1, w2, w3 = philox4x64(np.uint64(frame), np.uint64(pix), counter_word(PHOTONS, 0),
+                                                STREAM_TAG, k0, k1)
+                    if mu == background and table.size > 0:
+                        # background-only pixel: inversion through the guide table of Poisson(b)
+                        u = uniform_open(w0)
+                        n = guide[int(u * guide.size)]
+                        while table[n] < u:
+                            n += 1
+                        spare = True
+                    else:
+                        n = poisson(mu, k0, k1, frame, pix, PHOTONS)
+                        spare = mu < 10.0          # inversion used lane 0 only
                     e = float(n)
                     if em_gain > 0.0 and n > 0:
                         e = em_gain * gamma(float(n), k0, k1, frame, pix, EM_REGISTER)
                     if read_noise > 0.0:
-                        z, _ = normal_pair(k0, k1, frame, pix, READ_NOISE, 0)
+                        if spare:
+                            z, _ = box_muller(w2, w3)
+                        else:
+                            z, _ = normal_pair(k0, k1, frame, pix, READ_NOISE, 0)
                         e += read_noise * z
                     v = math.floor(conv * e + baseline + 0.5)
                     out_counts[i, j] = min(max(v, 0.0), top)
+
+
+def poisson_table(mu):
+    """CDF of Poisson(mu) up to where the tail is negligible (< 2**-60), and its guide table
+    (guide[j] = the smallest k with CDF(k) >= j/m): exact inversion in a few operations."""
+    from scipy import stats
+    if mu <= 0:
+        return np.zeros(0), np.zeros(0, dtype=np.int64)
+    k_max = int(mu + 14.0 * math.sqrt(mu) + 30.0)       # tail far below 2**-60 (Chernoff bound)
+    cdf = stats.poisson.cdf(np.arange(k_max + 1), mu)
+    cdf[-1] = 1.0
+    m = k_max + 1
+    guide = np.searchsorted(cdf, np.arange(m) / m, side="left").astype(np.int64)
+    return cdf, guide
 
 
 def spots_from_path(path, weights, photons, camera):
@@ -230,6 +261,17 @@ def spots_from_path(path, weights, photons, camera):
     return out.reshape(n_taps * n, 4)
 
 
+_TABLES = {}
+
+
+def _background_table(b):
+    if b not in _TABLES:
+        if len(_TABLES) > 64:
+            _TABLES.clear()
+        _TABLES[b] = poisson_table(b)
+    return _TABLES[b]
+
+
 def image_dtype(camera):
     return np.uint16 if camera.bit_depth <= 16 else np.uint32
 
@@ -242,10 +284,11 @@ def render_frame(spots, camera, frame, key, noise=True):
     counts = np.empty((rows, cols) if noise else (0, 0))
     em = float(camera.em_gain) if camera.em_gain is not None else 0.0
     conv = camera.gain / (camera.em_gain if camera.em_gain is not None else 1.0)
+    table, guide = _background_table(float(camera.background))
     _render(np.ascontiguousarray(spots, dtype=np.float64), rows, cols, float(camera.origin[0]),
             float(camera.origin[1]), float(camera.pixel_size), float(camera.background), np.int64(frame),
             np.uint64(key[0]), np.uint64(key[1]), bool(noise), em, float(camera.read_noise), float(conv),
-            float(camera.baseline), float(2 ** camera.bit_depth - 1), mu, counts)
+            float(camera.baseline), float(2 ** camera.bit_depth - 1), table, guide, mu, counts)
     return counts.astype(image_dtype(camera)) if noise else mu
 
 
