@@ -42,6 +42,23 @@ def test_camera_table_resolves_to_steps_and_si():
     assert o.psf_sigma == pytest.approx(0.210285 * 600e-9 / 1.2)
 
 
+def test_recorder_specs_reproduce_the_reference_frames():
+    # the taps the engine's recorders take (offset + k period + i spacing) give the reference averages
+    from langsim.measurement.spec import recorder_specs
+    from langsim.measurement.stage import reference_frames
+    for extra in ({}, {"shutter": "pulses", "pulses": 2}, {"shutter": "strobe"}):
+        m = load(**{**CAMERA, **extra}).measurement
+        x = np.random.default_rng(1).standard_normal((1001, 3, 2))
+        avg, path = reference_frames(x, m)
+        specs = {r["name"]: r for r in recorder_specs(m)}
+        for name, ref in (("true_positions", avg), ("path", path)):
+            r = specs[name]
+            k = np.arange(ref.shape[0])[:, None] * r["period"] + r["offset"] + r["spacing"] * np.arange(r["n_taps"])
+            taps = x[k]
+            got = np.einsum("t,ktnd->knd", np.array(r["weights"]), taps) if r["mode"] == "sum" else taps
+            np.testing.assert_allclose(got, ref, rtol=1e-13, atol=1e-15)
+
+
 def test_detector_table():
     m = load(detector=DETECTOR).measurement
     d = m.detector
@@ -54,6 +71,10 @@ def test_shutters_and_path_samples():
     m = load(frame_rate=50.0, exposure=0.02, shutter="pulses", pulses=4).measurement
     w, o = m.exposure_taps()
     assert list(o) == [2, 7, 12, 17] and np.allclose(w, 0.25)
+    # pulse train blur: (t_E/Dt)(n^2 - 1)/(6 n^2) for midpoint flashes (module notes; exact here)
+    assert m.blur == pytest.approx(formulas.blur_coefficient("pulses", 0.02, 0.02, pulses=4))
+    with pytest.raises(ConfigError, match="divisor"):
+        load(frame_rate=50.0, exposure=0.02, shutter="pulses", pulses=3)
     m = load(frame_rate=10.0, exposure=0.1, path_samples=11).measurement
     w, o = m.path_taps()
     assert list(o) == list(range(0, 101, 10)) and w.sum() == pytest.approx(1.0)
@@ -64,7 +85,7 @@ def test_shutters_and_path_samples():
 INVALID = {
     "frame_rate": [-1.0, "fast", 300.0],        # 300 Hz is 3.33 steps of 1 ms
     "exposure": [-0.001, 0.02, 0.0045],          # longer than a frame; not whole steps
-    "shutter": ["round"], "pulses": [0, 100], "path_samples": [4, 0],
+    "shutter": ["round"], "pulses": [0, 100, 3], "path_samples": [4, 0],
     "localization_error": [-1e-9, [1e-9, 2e-9, 3e-9]], "drift_velocity": ["north"],
     "drift_jitter": [-1.0], "on_rate": [0.0], "off_rate": [-2.0], "bleach_rate": ["x"],
     "field_of_view": [[1, 0, 0, 1], [0, 1]], "photons": [0.0], "intensity_spread": [-0.1],

@@ -152,12 +152,12 @@ def test_stage_state_round_trip_is_bit_identical():
 
 def test_check_rows_of_a_measured_run():
     # langsim.check on a run with a camera: displacement moments, estimators, background photons
-    cfg = {"seed": 23, "particles": {"count": 60, "dimensions": 2, "friction": 1e-8,
-                                     "initial": {"box": [[-3e-6, 3e-6], [-3e-6, 3e-6]]}},
-           "dynamics": {"dt": 1e-3, "steps": 3000},
+    cfg = {"seed": 23, "particles": {"count": 30, "dimensions": 2, "friction": 1e-8,
+                                     "initial": {"box": [[-4e-6, 4e-6], [-4e-6, 4e-6]]}},
+           "dynamics": {"dt": 1e-3, "steps": 5000},
            "measurement": {"frame_rate": 100.0, "exposure": 0.006, "localization_error": 25e-9,
                            "drift_velocity": [3e-7, 0.0], "photons": 1500.0, "pixel_size": 100e-9,
-                           "image_shape": [96, 96], "psf_sigma": 130e-9, "background": 4.0, "gain": 2.0,
+                           "image_shape": [128, 128], "psf_sigma": 100e-9, "background": 4.0, "gain": 2.0,
                            "read_noise": 1.2}}
     spec = config.load(cfg)
     traj = langsim.run(cfg, progress=False)
@@ -165,8 +165,14 @@ def test_check_rows_of_a_measured_run():
     report = langsim.check(traj)
     keys = {r.quantity: r for r in report.rows}
     for q in ("displacement variance x", "displacement lag-1 covariance y", "D (covariance estimator)",
-              "localization variance (optimal MSD fit)", "background mean", "background variance"):
+              "localization variance (optimal MSD fit)", "background mean", "background variance",
+              "spot photons (isolated emitters)"):
         assert keys[q].status == "pass", (q, keys[q])
+    spot = keys["spot photons (isolated emitters)"]
+    traj.measured = dict(traj.measured, photons=1.05 * traj.measured["photons"])   # a wrong photon record
+    assert {r.quantity: r for r in langsim.check(traj).rows}["spot photons (isolated emitters)"].status == "fail"
+    traj.measured = dict(traj.measured, photons=traj.measured["photons"] / 1.05)
+    assert spot.error < 0.01 * spot.predicted
     # a wrong localization error in the file is caught
     traj.measured = dict(traj.measured, positions=traj.measured["positions"] + 25e-9 * np.random.default_rng(
         1).standard_normal(traj.measured["positions"].shape))

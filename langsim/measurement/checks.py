@@ -144,6 +144,8 @@ def measurement_rows(report, traj, s, kw):
                     report.notes.append(f"blurred trap {AXES[a]} skipped: {e}")
     if "images" in data:
         _background_rows(report, data, m, _row, kw)
+        if "photons" in data:
+            _spot_rows(report, data, m, _row, kw)
     if "signal" in data and m.get("detector"):
         _detector_rows(report, data, cfg, s, _row, kw)
 
@@ -185,6 +187,49 @@ def _background_rows(report, data, m, _row, kw):
                             "gain x background (counts above baseline)", SRC_CAM, "counts", **kw))
     report.rows.append(_row("background variance", vv, math.sqrt(max(mu4 - vv * vv, 0.0) / v.size), var,
                             f"F g^2 b + (g/G)^2 r^2 + 1/12, F = {F:g}", SRC_CAM, "counts^2", **kw))
+
+
+def _spot_rows(report, data, m, _row, kw):
+    """Photons in the windows of isolated emitters (no other within 12 sigma, 7 sigma from the edges)."""
+    images = data["images"]
+    n = min(len(images), BACKGROUND_FRAMES)
+    rows, cols = m["image_shape"]
+    a, (x0, y0), sg = m["pixel_size"], m["origin"], m["psf_sigma"]
+    if m.get("defocus_depth"):
+        report.notes.append("spot photons not checked with defocus (the window would need z)")
+        return
+    true = np.asarray(data["true_positions"][:n], dtype=float)
+    drift = np.asarray(data["drift"][:n], dtype=float) if "drift" in data else np.zeros((n, true.shape[2]))
+    photons = np.asarray(data["photons"][:n], dtype=float)
+    h = int(math.ceil(7.0 * sg / a))
+    top = 2 ** m["bit_depth"] - 1
+    est, pred = [], []
+    for f in range(n):
+        p = true[f, :, :2] + drift[f][None, :2]
+        img = None
+        for k in range(p.shape[0]):
+            if photons[f, k] <= 0:
+                continue
+            others = np.delete(p, k, axis=0)
+            if others.size and np.min(np.hypot(*(others - p[k]).T)) < 12.0 * sg:
+                continue
+            j, i = int((p[k, 0] - x0) // a), int((p[k, 1] - y0) // a)
+            if not (h <= j < cols - h and h <= i < rows - h):
+                continue
+            if img is None:
+                img = np.asarray(images[f], dtype=float)
+            win = img[i - h:i + h + 1, j - h:j + h + 1]
+            if win.max() >= top:
+                continue
+            est.append(np.sum(win - m["baseline"]) / m["gain"] - m["background"] * win.size)
+            pred.append(photons[f, k])
+    if len(est) < 30:
+        report.notes.append(f"only {len(est)} isolated spots; spot photon check skipped")
+        return
+    est, pred = np.array(est), np.array(pred)
+    report.rows.append(_row("spot photons (isolated emitters)", est.mean(), (est - pred).std(ddof=1) / math.sqrt(est.size),
+                            pred.mean(), f"window of +-{h} pixels: (counts - baseline)/gain - background, "
+                            f"{est.size} spots", SRC_CAM, "photons", **kw))
 
 
 def _detector_rows(report, data, cfg, s, _row, kw):

@@ -145,6 +145,30 @@ class MeasurementWarning(UserWarning):
     """A [measurement] table that this version cannot fully honour."""
 
 
+def recorder_specs(m):
+    """The engine recorders the measurement stage needs, as keyword dicts for ``engine.Recorder``.
+
+    ``true_positions`` (group ``measured``): the exposure average ("sum" over the shutter's
+    taps); ``path`` (images only): the path samples ("sequence"); ``detector_positions``: every
+    step (a detector). Taps of frame k sit at offset + k period + i spacing steps.
+    """
+    out = []
+    if m.frame_steps:
+        w, o = m.exposure_taps()
+        out.append(dict(name="true_positions", group="measured", period=m.frame_steps, offset=int(o[0]),
+                        n_taps=len(w), spacing=int(o[1] - o[0]) if len(o) > 1 else 1,
+                        weights=tuple(float(v) for v in w), mode="sum", units="m"))
+        if m.camera is not None:
+            w, o = m.path_taps()
+            out.append(dict(name="path", group="measured", period=m.frame_steps, offset=int(o[0]),
+                            n_taps=len(w), spacing=int(o[1] - o[0]) if len(o) > 1 else 1,
+                            weights=tuple(float(v) for v in w), mode="sequence", units="m"))
+    if m.detector is not None:
+        out.append(dict(name="detector_positions", group="detector", period=1, offset=0, n_taps=1,
+                        spacing=1, weights=(1.0,), mode="sum", units="m"))
+    return out
+
+
 def shutter_taps(shutter, exposure_steps, pulses=1):
     """Tap weights and step offsets of a shutter over ``exposure_steps`` steps.
 
@@ -157,7 +181,8 @@ def shutter_taps(shutter, exposure_steps, pulses=1):
     if shutter == "strobe":
         return np.array([1.0]), np.array([0], dtype=np.int64)
     n = int(pulses)
-    offsets = np.floor((np.arange(n) + 0.5) * exposure_steps / n).astype(np.int64)
+    gap = exposure_steps // n                    # validation makes n divide the exposure
+    offsets = gap // 2 + gap * np.arange(n, dtype=np.int64)
     return np.full(n, 1.0 / n), offsets
 
 
@@ -226,8 +251,9 @@ def parse(mapping, errors, dims, dt, steps):
             errors.note("[measurement] pulses is missing: shutter = 'pulses' needs the number of "
                         "flashes per exposure (an integer >= 1)")
             pulses = 1
-        elif exposure_steps and pulses > exposure_steps:
-            t.bad("pulses", f"at most the exposure's {exposure_steps} steps")
+        elif exposure_steps and exposure_steps % pulses:
+            t.bad("pulses", f"a divisor of the exposure's {exposure_steps} steps (flashes evenly spaced in "
+                            "whole steps)")
     elif t.has("pulses") and shutter != "pulses":
         t.bad("pulses", "no value: pulses applies to shutter = 'pulses'")
     samples = t.get("path_samples", integer(1, 10**6))

@@ -28,6 +28,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from numba import njit
+
 from . import render
 
 #: Emitter states of the telegraph process.
@@ -134,41 +136,11 @@ class MeasurementStage:
     def _blink(self, frame):
         """On-fraction of each emitter's exposure in ``frame``; advances the states to the next frame."""
         m = self.m
-        T, tE = m.frame_interval, m.exposure
-        on_rate = m.on_rate or 0.0
-        off_rate = m.off_rate or 0.0
-        bleach = m.bleach_rate or 0.0
+        if not m.blinking:
+            return np.ones(self.n)
         frac = np.zeros(self.n)
-        for i in range(self.n):
-            s = int(self.emitter[i])
-            if not m.blinking:
-                frac[i] = 1.0
-                continue
-            if tE == 0:
-                frac[i] = 1.0 if s == ON else 0.0
-            t, draw, on_time = 0.0, 0, 0.0
-            while t < T and s != BLEACHED:
-                rate = off_rate + bleach if s == ON else on_rate
-                if rate <= 0:
-                    step = T - t
-                else:
-                    step = -np.log(render.uniform(self.k0, self.k1, frame, i, render.BLINKING, draw)) / rate
-                    draw += 1
-                end = min(t + step, T)
-                if s == ON and tE > 0:
-                    on_time += max(0.0, min(end, tE) - min(t, tE))
-                if t + step >= T:
-                    break
-                if s == ON:
-                    u = render.uniform(self.k0, self.k1, frame, i, render.BLINKING, draw)
-                    draw += 1
-                    s = BLEACHED if u * (off_rate + bleach) < bleach else OFF
-                else:
-                    s = ON
-                t += step
-            if tE > 0:
-                frac[i] = on_time / tE
-            self.emitter[i] = s
+        _blink_frame(self.emitter, frac, frame, m.frame_interval, m.exposure, m.on_rate or 0.0,
+                     m.off_rate or 0.0, m.bleach_rate or 0.0, self.k0, self.k1)
         return frac
 
     def _drift(self, frame):
@@ -209,12 +181,7 @@ class MeasurementStage:
             x = averages[j] + drift
             noisy = x.copy()
             if np.any(sig > 0):
-                for i in range(self.n):
-                    for a in range(0, self.d, 2):
-                        z0, z1 = render.normal_pair(self.k0, self.k1, f, i, render.LOCALIZATION, a // 2)
-                        noisy[i, a] += sig[a] * z0
-                        if a + 1 < self.d:
-                            noisy[i, a + 1] += sig[a + 1] * z1
+                _localization_noise(noisy, sig, f, self.k0, self.k1)
             on = frac > 0
             view = np.ones(self.n, bool)
             if m.field_of_view is not None:
@@ -241,6 +208,50 @@ class MeasurementStage:
                 out["images"][j] = render.render_frame(spots, m.camera, f, self.key)
         self.next_frame = frame0 + k
         return out
+
+
+@njit(cache=True)
+def _blink_frame(state, frac, frame, T, tE, on_rate, off_rate, bleach, k0, k1):
+    """Telegraph process with bleaching through one frame interval [0, T), exposure [0, tE)."""
+    for i in range(state.shape[0]):
+        s = state[i]
+        if tE == 0.0:
+            frac[i] = 1.0 if s == ON else 0.0
+        t, draw, on_time = 0.0, 0, 0.0
+        while t < T and s != BLEACHED:
+            rate = off_rate + bleach if s == ON else on_rate
+            if rate <= 0.0:
+                step = T - t
+            else:
+                step = -np.log(render.uniform(k0, k1, frame, i, render.BLINKING, draw)) / rate
+                draw += 1
+            end = min(t + step, T)
+            if s == ON and tE > 0.0:
+                on_time += max(0.0, min(end, tE) - min(t, tE))
+            if t + step >= T:
+                break
+            if s == ON:
+                u = render.uniform(k0, k1, frame, i, render.BLINKING, draw)
+                draw += 1
+                s = BLEACHED if u * (off_rate + bleach) < bleach else OFF
+            else:
+                s = ON
+            t += step
+        if tE > 0.0:
+            frac[i] = on_time / tE
+        state[i] = s
+
+
+@njit(cache=True)
+def _localization_noise(x, sigma, frame, k0, k1):
+    """x[i, a] += sigma[a] N(0, 1), the normals of (frame, particle, component pair)."""
+    n, d = x.shape
+    for i in range(n):
+        for a in range(0, d, 2):
+            z0, z1 = render.normal_pair(k0, k1, frame, i, render.LOCALIZATION, a // 2)
+            x[i, a] += sigma[a] * z0
+            if a + 1 < d:
+                x[i, a + 1] += sigma[a + 1] * z1
 
 
 def reference_frames(positions, measurement, frame0=0, n_frames=None):
