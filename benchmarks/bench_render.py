@@ -15,25 +15,15 @@ import argparse
 import json
 import os
 import platform
-import time
 
 import numba
 import numpy as np
 
 from langsim import config
+from bench_noise import best          # the same best-of-n timer (this folder)
 from langsim.measurement import render
 
 HERE = os.path.dirname(os.path.abspath(__file__))
-
-
-def best(fn, repeat):
-    fn()
-    times = []
-    for _ in range(repeat):
-        t = time.perf_counter()
-        fn()
-        times.append(time.perf_counter() - t)
-    return min(times)
 
 
 def camera(em):
