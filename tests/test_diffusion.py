@@ -208,3 +208,28 @@ def test_wong_halvorsen_values_and_blurred_trap():
     assert abs(est.tau_ - tau) <= Z * est.tau_err_
     # naive equipartition over-states the stiffness by 1/S = 1.36 (check-values section 13): it fails
     assert abs(est.naive_stiffness_ - k) > Z * est.stiffness_err_
+
+
+def test_optimal_number_of_msd_points():
+    # Michalet 2010: the optimal number of points is 2 for small reduced localization error
+    # x = sigma^2/(D Dt) and grows with x (quoted from memory). The variance of the slope-D for each
+    # p, from the exact covariance of MSD points, against a Monte Carlo of 4000 single tracks (x = 3).
+    rng = np.random.default_rng(17)
+    D, dt, n_frames, P = 1.0, 1.0, 100, 12
+    x = blurred_tracks(rng, 4000, n_frames, D, dt, 1e-12, math.sqrt(3.0))[:, :, 0]
+    M = np.array([np.mean((x[n:] - x[:-n]) ** 2, axis=0) for n in range(1, P + 1)])
+    s, c = F.displacement_moments(D, dt, 3.0, 0.0)
+    C = msd_point_covariance([n_frames], P, s, c) / np.outer(n_frames - np.arange(1, P + 1),
+                                                             n_frames - np.arange(1, P + 1))
+    var_model, var_mc = [], []
+    for p in range(2, P + 1):
+        u, _ = OptimalMSDFit._line(p, dt)
+        d_hat = u @ M[:p] / 2
+        var_model.append(u @ C[:p, :p] @ u / 4)
+        var_mc.append(d_hat.var(ddof=1))
+        assert abs(var_mc[-1] - var_model[-1]) <= Z * var_model[-1] * math.sqrt(2 / 4000), p
+    best = 2 + int(np.argmin(var_model))
+    assert 3 <= best <= 8
+    fits = [OptimalMSDFit(dt, blur=0.0).fit(blurred_tracks(rng, 50, 200, D, dt, 1e-12, math.sqrt(v))).n_points_
+            for v in (0.01, 3.0, 30.0)]
+    assert fits[0] == 2 and fits[0] < fits[1] < fits[2]
