@@ -60,7 +60,6 @@ References
 import math
 
 import numpy as np
-from scipy import integrate, special
 
 __all__ = ["SHUTTERS", "blur_coefficient", "tap_blur_coefficient", "trapezoid_taps",
            "displacement_moments", "ma1_total_covariance", "cve_variance", "cve_variance_leading",
@@ -265,6 +264,7 @@ def pixel_fractions(edges, center, sigma):
 
     ``0.5 [erf((e_{i+1} - c)/(sqrt2 s)) - erf((e_i - c)/(sqrt2 s))]`` [6].
     """
+    from scipy import special
     e = (np.asarray(edges, dtype=float) - center) / (math.sqrt(2.0) * sigma)
     return 0.5 * np.diff(special.erf(e))
 
@@ -288,6 +288,7 @@ def spot_fisher_information(x, y, sigma, photons, background, pixel_size, shape,
     I_pq = sum_ij (d mu/dp)(d mu/dq)/mu [5]; an EM register's excess noise
     factor F^2 = ``excess`` divides it (common practice; [4]).
     """
+    from scipy import special
     rows, cols = shape
     ex = (origin[0] + pixel_size * np.arange(cols + 1) - x) / sigma
     ey = (origin[1] + pixel_size * np.arange(rows + 1) - y) / sigma
@@ -310,6 +311,7 @@ def mortensen_mle_variance(sigma, pixel_size, photons, background, excess=1.0):
     F (s_a^2/N) [1 + int_0^1 ln t/(1 + t/tau) dt]^-1, s_a^2 = s^2 + a^2/12,
     tau = 2 pi s_a^2 b/(N a^2) (b: background photons per pixel). Agrees with the
     numerical Cramer-Rao bound to 0.13 % (check-values section 14)."""
+    from scipy import integrate
     sa2 = sigma * sigma + pixel_size * pixel_size / 12.0
     b = max(background, 1e-300)
     tau = 2.0 * math.pi * sa2 * b / (photons * pixel_size * pixel_size)
