@@ -179,3 +179,37 @@ def test_check_rows_of_a_measured_run():
     bad = {r.quantity: r for r in langsim.check(traj).rows}
     assert bad["displacement variance x"].status == "fail"
     assert bad["localization variance (covariance estimator)"].status == "fail"
+
+
+def test_engine_adapter_in_chunks_with_a_checkpoint_matches_one_pass():
+    # what the engine will do: recorder frames and every-step positions in bursts, a checkpoint
+    # (state arrays) in the middle, a fresh adapter restored from it; the output must be bit-identical
+    from langsim.measurement.stage import EngineAdapter, reference_frames
+    cfg = {"seed": 12, "particles": {"count": 10, "dimensions": 2, "friction": 1e-8},
+           "potential": [{"type": "harmonic", "stiffness": 1e-7}],
+           "dynamics": {"dt": 1e-4, "steps": 2000},
+           "measurement": {"frame_rate": 500.0, "exposure": 0.0016, "localization_error": 5e-9, "photons": 300.0,
+                           "on_rate": 50.0, "off_rate": 50.0, "pixel_size": 100e-9, "image_shape": [24, 24],
+                           "psf_sigma": 120e-9, "background": 2.0,
+                           "detector": {"sampling_rate": 2000.0, "sensitivity": 1e6, "filter": "photodiode",
+                                        "diode_frequency": 1000.0, "diode_fraction": 0.4, "noise": 1e-6,
+                                        "anti_alias_cutoff": 800.0}}}
+    spec = config.load(cfg)
+    x = np.asarray(langsim.run({k: v for k, v in cfg.items() if k != "measurement"}, progress=False).positions)
+    avg, path = reference_frames(x, spec.measurement)
+    one = EngineAdapter(spec)
+    assert {r["name"] for r in one.recorders()} == {"true_positions", "path", "detector_positions"}
+    assert one.layout(2000)["measured"][0] == avg.shape[0] == 100
+    whole = one.frames({"true_positions": avg, "path": path}, 0)
+    sig = one.detector(0, x)
+    a = EngineAdapter(spec)
+    first = a.frames({"true_positions": avg[:4], "path": path[:4]}, 0)
+    s1 = a.detector(0, x[:777])
+    b = EngineAdapter(spec)
+    b.restore({k: np.array(v) for k, v in a.state().items()})      # as read back from a checkpoint
+    second = b.frames({"true_positions": avg[4:], "path": path[4:]}, 4)
+    s2 = b.detector(777, x[777:])
+    for name in whole:
+        np.testing.assert_array_equal(whole[name], np.concatenate([first[name], second[name]]), err_msg=name)
+    np.testing.assert_array_equal(sig, np.concatenate([s1, s2]))
+    assert sig.shape == (2001 // 5 + 1, 10, 2)

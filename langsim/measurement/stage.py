@@ -284,3 +284,71 @@ def measure(positions, measurement, seed, chunk=64):
         avg, path = reference_frames(positions, measurement, f0, k)
         parts.append(stage.process(f0, avg, path if measurement.camera is not None else None))
     return {name: np.concatenate([p[name] for p in parts]) for name in parts[0]}
+
+
+class EngineAdapter:
+    """Everything the engine needs to run a ``[measurement]``, in a few calls.
+
+    ``recorders()`` lists the recorders to attach (keyword dicts for
+    ``engine.Recorder``); ``layout(n_steps)`` the datasets to declare
+    ({group: (n_frames, [(name, frame shape, units, dtype), ...])}, attributes in
+    ``attributes()``); ``frames(burst_frames, first)`` turns one burst's recorder
+    frames of group ``measured`` into the arrays to write (a detector's every-step
+    positions go through ``detector(step0, positions)``); ``state()`` and
+    ``restore(arrays)`` carry the stage's state through a checkpoint (named arrays).
+    """
+
+    def __init__(self, spec):
+        from . import spec as _spec
+        self.m = spec.measurement
+        p = spec.particles
+        self.n, self.d = p.count, p.dimensions
+        self.specs = _spec.recorder_specs(self.m)
+        self.camera = MeasurementStage(self.m, self.n, self.d, spec.seed) if self.m.frame_steps else None
+        self.detector_model = None
+        if self.m.detector is not None:
+            from .detector import DetectorModel
+            self.detector_model = DetectorModel(self.m.detector, self.n, self.d, spec.dynamics.dt, spec.seed)
+
+    def recorders(self):
+        return [dict(r) for r in self.specs]
+
+    def layout(self, n_steps):
+        out = {}
+        if self.camera is not None:
+            out["measured"] = (self.m.n_frames(n_steps),
+                               [(s.name, s.shape, s.units, s.dtype) for s in self.camera.datasets()])
+        if self.detector_model is not None:
+            k = self.m.detector.sampling_steps
+            out["detector"] = (n_steps // k + 1, [("signal", (self.n, self.d), "V", np.float64)])
+        return out
+
+    def attributes(self):
+        """{dataset path: attributes} to store beside the data (units are in the layout)."""
+        if self.camera is None:
+            return {}
+        return {f"measured/{s.name}": s.attrs for s in self.camera.datasets()}
+
+    def frames(self, frames, first):
+        """Arrays for group ``measured`` from recorder frames {"true_positions": ..., "path": ...}."""
+        return self.camera.process(first, frames["true_positions"], frames.get("path"))
+
+    def detector(self, step0, positions):
+        """Detector samples (V) of the steps step0 .. step0 + len(positions) - 1."""
+        return self.detector_model.process(step0, positions)
+
+    def state(self):
+        out = {}
+        if self.camera is not None:
+            out.update({f"measurement_{k}": v for k, v in self.camera.state().items()})
+        if self.detector_model is not None:
+            out.update({f"detector_{k}": v for k, v in self.detector_model.state().items()})
+        return out
+
+    def restore(self, arrays):
+        if self.camera is not None:
+            self.camera.restore({k[len("measurement_"):]: v for k, v in arrays.items()
+                                 if k.startswith("measurement_")})
+        if self.detector_model is not None:
+            self.detector_model.restore({k[len("detector_"):]: v for k, v in arrays.items()
+                                         if k.startswith("detector_")})
