@@ -620,15 +620,28 @@ class Engine:
         self.sink = sink
         self.progress = progress
         self.recorders = snapshot_recorders(spec)
+        self.measurement = None
+        if getattr(spec, "measurement", None) is not None:     # camera / detector recorders
+            from .measurement.stage import EngineAdapter
+            self.measurement = EngineAdapter(spec)
+            self.recorders += tuple(Recorder(**r) for r in self.measurement.recorders())
         self.stats = RunStats()
 
+    def _measured(self, r):
+        """True for a recorder whose frames go through the measurement stage."""
+        return self.measurement is not None and r.name in self.measurement.RECORDERS
+
     def layout(self):
-        """{group: (n_frames, [(name, frame shape, units), ...])} of every recorder."""
+        """{group: (n_frames, [(name, frame shape, units[, dtype, attributes]), ...])} of the run."""
         p, steps = self.spec.particles, self.spec.dynamics.steps
         groups = {}
         for r in self.recorders:
+            if self._measured(r):
+                continue
             n_frames, sets = groups.setdefault(r.group, (r.n_frames(steps), []))
             sets.append((r.name, r.frame_shape(p.count, p.dimensions), r.units))
+        if self.measurement is not None:
+            groups.update(self.measurement.layout(steps))
         return groups
 
     def run(self):
@@ -662,6 +675,8 @@ class Engine:
         acc = resume.arrays.get("accumulators")
         if acc is not None and acc.shape == state.accumulators.shape:
             state.accumulators[:] = acc
+        if self.measurement is not None:
+            self.measurement.restore(resume.arrays)
         return state, None
 
     def _checkpoint(self, state):
@@ -670,6 +685,8 @@ class Engine:
             arrays["velocities"] = state.velocities
         if any(r.span > 0 for r in self.recorders):
             arrays["accumulators"] = state.accumulators
+        if self.measurement is not None:
+            arrays.update(self.measurement.state())
         self.sink.checkpoint(state.step, arrays)
 
     def _chunk_steps(self, state):
@@ -689,18 +706,23 @@ class Engine:
 
     def _write(self, burst, keep_before=None):
         """Hand a burst's frames to the sink, group by group (frames before ``keep_before`` only)."""
-        groups = {}
+        groups, measured = {}, {}
         for r in self.recorders:
             frames = burst.frames[r.name]
             first = burst.first_frame[r.name]
             if keep_before is not None:
                 last_tap = r.offset + (first + np.arange(len(frames))) * r.period + r.span
                 frames = frames[:int(np.count_nonzero(last_tap < keep_before))]
+            if self._measured(r):
+                measured[r.name] = (first, frames)
+                continue
             groups.setdefault(r.group, (first, r, {}))[2][r.name] = frames
         for group, (first, r, arrays) in groups.items():
             count = len(next(iter(arrays.values())))
             if count:
                 self.sink.write(group, first, r.times(first, count, self.sim.dt), arrays)
+        if measured:
+            self.measurement.write(self.sink, measured)
 
     def _run(self, stop):
         spec, sim = self.spec, self.sim

@@ -134,6 +134,10 @@ class Trajectory:
         """The ``measured`` group (what an instrument reports), or None."""
         return self.groups.get("measured")
 
+    @measured.setter
+    def measured(self, value):
+        self.groups["measured"] = value
+
     @property
     def n_frames(self):
         return self.positions.shape[0]
@@ -186,8 +190,8 @@ class MemorySink:
         self.groups, self.n_written, self.units = {}, {}, {}
         for group, (n_frames, datasets) in layout.items():
             arrays = {"time": np.empty(n_frames)}
-            for name, shape, units in datasets:
-                arrays[name] = np.empty((n_frames,) + tuple(shape), dtype=dtype)
+            for name, shape, units, *extra in datasets:
+                arrays[name] = np.empty((n_frames,) + tuple(shape), dtype=extra[0] if extra else dtype)
                 self.units[f"{group}/{name}" if group else name] = units
             self.groups[group] = arrays
             self.n_written[group] = 0
@@ -577,11 +581,14 @@ class HDF5Sink:
             time = g.create_dataset("time", shape=(0,), maxshape=(None,), dtype=np.float64,
                                     chunks=(max(1024, per),))
             time.attrs["units"] = UNITS["time"]
-            for (name, shape, units, *_), ds_type, c in zip(datasets, types, chunks):
+            for (name, shape, units, *extra), ds_type, c in zip(datasets, types, chunks):
                 ds = g.create_dataset(name, shape=(0,) + tuple(shape),
                                       maxshape=(None,) + tuple(shape), dtype=ds_type,
                                       chunks=(per,) + c[1:], **kw)
                 ds.attrs["units"] = units
+                for key, value in (extra[1] if len(extra) > 1 else {}).items():
+                    if value is not None:          # HDF5 attributes have no null
+                        ds.attrs[key] = value
                 if kw:      # frames of an unfinished compressed chunk wait here (see _FrameGroup)
                     cp.create_dataset(_tail_name(group, name), shape=(2, per) + c[1:],
                                       dtype=ds_type)
@@ -633,7 +640,7 @@ class HDF5Sink:
             n_frames = {}
             for name, g in self.groups.items():
                 n_frames[name] = g.restore(cp, slot)
-            arrays = {name: cp[name][slot] for name in _STATE_ARRAYS if name in cp}
+            arrays = {name: cp[name][slot] for name in cp if not name.startswith("tail_")}
             f.attrs["n_frames"] = self.groups[""].n_stored
             f.attrs["state"] = STATE_RUNNING
             f.attrs["complete"] = False
@@ -786,10 +793,6 @@ def _put(ds, start, data):
     if ds.shape[0] < stop:
         ds.resize(stop, axis=0)
     ds[start:stop] = data
-
-
-#: Checkpointed state arrays a resume reads back.
-_STATE_ARRAYS = ("positions", "velocities", "accumulators")
 
 
 def _tail_name(group, name):

@@ -1,8 +1,8 @@
 """The measurement stage on runs of the engine: blur moments, blurred traps, blinking, drift.
 
-Until the engine's in-kernel recorder lands, exposure averages are computed here from
-every-step positions (langsim.measurement.stage.reference_frames): the reference the
-recorder must match. Sources: check-values section 8 (displacement moments with the blur
+Exposure averages are computed here from every-step positions
+(langsim.measurement.stage.reference_frames), the reference that the engine's in-kernel
+recorder matches bit for bit (tests/test_measurement_run.py). Sources: check-values section 8 (displacement moments with the blur
 coefficient R, Berglund 2010 and Vestergaard et al. 2014; R of the recorder's taps derived
 in langsim.measurement.formulas), section 13 (Wong & Halvorsen 2006), the two-state Markov
 chain's stationary law and exponential survival (common practice).

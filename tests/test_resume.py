@@ -74,6 +74,16 @@ def start_cli(args, preexec_fn=None):
                             preexec_fn=preexec_fn)
 
 
+def wait_for_checkpoint(proc, out, target, rng, timeout=120):
+    """Return once the run ``proc`` writing ``out`` has a checkpoint at step >= ``target``,
+    plus a random delay of up to 20 ms (so the signal may land anywhere in a chunk)."""
+    deadline = time.monotonic() + timeout
+    while proc.poll() is None and checkpoint_step(out) < target and time.monotonic() < deadline:
+        time.sleep(0.005)
+    time.sleep(float(rng.uniform(0, 0.02)))
+    assert proc.poll() is None, "the run ended before it could be stopped"
+
+
 def assert_same_run(path, ref):
     with h5py.File(path, "r") as f:
         assert f.attrs["state"] == "complete" and bool(f.attrs["complete"])
@@ -96,11 +106,7 @@ def test_stop_then_resume_is_bit_identical(tmp_path, sig, text):
     rng = np.random.default_rng(int(sig))          # fixed moment per signal
     target = int(rng.integers(4000, 20000))
     proc = start_cli(["run", config, "-o", out, "--quiet"])
-    deadline = time.monotonic() + 120
-    while proc.poll() is None and checkpoint_step(out) < target and time.monotonic() < deadline:
-        time.sleep(0.005)
-    time.sleep(float(rng.uniform(0, 0.02)))
-    assert proc.poll() is None, "the run ended before it could be stopped"
+    wait_for_checkpoint(proc, out, target, rng)
     proc.send_signal(sig)
     _, err = proc.communicate(timeout=60)
     if sig == signal.SIGKILL:

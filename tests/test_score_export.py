@@ -79,17 +79,9 @@ def _run_with_measurement(tmp_path, extra=None):
     path = tmp_path / "movie.h5"
     traj = langsim.run(cfg, out=str(path), progress=False)
     out = measure(np.asarray(traj.positions), spec.measurement, spec.seed)
+    for name, arr in out.items():                  # the engine wrote the same group
+        np.testing.assert_array_equal(np.asarray(traj.measured[name]), arr, err_msg=name)
     traj.close()
-    from langsim.measurement.stage import MeasurementStage
-    decl = {d.name: d for d in MeasurementStage(spec.measurement, 12, 2, spec.seed).datasets()}
-    with h5py.File(path, "a") as f:                 # what the engine's sink will write
-        g = f.create_group("measured")
-        for name, arr in out.items():
-            ds = g.create_dataset(name, data=arr)
-            ds.attrs["units"] = decl[name].units
-            for k, v in decl[name].attrs.items():
-                ds.attrs[k] = json.dumps(v) if isinstance(v, (list, dict)) or v is None else v
-        g.attrs["n_frames"] = len(out["time"])
     return path, out, spec
 
 
@@ -126,3 +118,44 @@ def test_export_and_score_commands(tmp_path, capsys):
     _table(loc, [[0, 1.0]], header="frame,x")
     assert cli.main(["score", str(path), str(loc)]) == 2
     assert "lacks y" in capsys.readouterr().err
+
+
+class _FailingFrames:
+    """Frames that read fine up to ``good`` and then fail, as a disk or a kill would."""
+
+    def __init__(self, array, good):
+        self.array, self.good = array, good
+        self.shape, self.dtype = array.shape, array.dtype
+
+    def __len__(self):
+        return len(self.array)
+
+    def __getitem__(self, key):
+        if isinstance(key, slice) and (key.stop or len(self.array)) > self.good:
+            raise OSError("read failed")
+        return self.array[key]
+
+
+@pytest.mark.parametrize("existing", [False, True])
+def test_export_that_fails_midway_leaves_no_half_file(tmp_path, monkeypatch, existing):
+    # the table is written at a temporary name and renamed when whole (langsim.safeio)
+    from langsim.measurement import export
+    monkeypatch.setattr(export, "EXPORT_CHUNK", 2)
+    k, n = 6, 3
+    data = {"time": np.arange(k) * 0.1, "true_positions": np.zeros((k, n, 2)), "drift": np.zeros((k, 2))}
+    target = tmp_path / "truth.csv"
+    if existing:
+        target.write_text("the user's own table\n")
+    assert export.export_table(data, str(tmp_path / "whole.csv")) == k * n      # a good export works
+    bad = dict(data, true_positions=_FailingFrames(data["true_positions"], good=4))
+    with pytest.raises(OSError):
+        export.export_table(bad, str(target), overwrite=existing)
+    if existing:
+        assert target.read_text() == "the user's own table\n"     # untouched
+    else:
+        assert not target.exists()
+    assert sorted(p.name for p in tmp_path.iterdir()) == sorted(["whole.csv"] + (["truth.csv"] if existing else []))
+    # replacing an existing file when asked gives the whole new table
+    if existing:
+        assert export.export_table(data, str(target), overwrite=True) == k * n
+        assert len(target.read_text().splitlines()) == k * n + 1

@@ -148,7 +148,11 @@ def _any_nonfinite(bits):
 
 @njit(inline="always", cache=True)
 def _first_tap(rec_int, r, c):
-    """(frame, tap, step count) of the first tap of recorder r at or after step count c."""
+    """(frame, tap, step count) of the first tap of recorder r at or after step count c.
+
+    When a frame's taps span a whole period (an exposure of the whole frame interval), its
+    last tap and the next frame's first share a step count; the earlier frame's comes first.
+    """
     period, offset = rec_int[r, R_PERIOD], rec_int[r, R_OFFSET]
     n_taps, spacing = rec_int[r, R_TAPS], rec_int[r, R_SPACING]
     if c <= offset:
@@ -156,6 +160,8 @@ def _first_tap(rec_int, r, c):
     rel = c - offset
     k = rel // period
     j = rel - k * period
+    if j == 0 and k > 0 and (n_taps - 1) * spacing == period:
+        return k - 1, n_taps - 1, c
     i = (j + spacing - 1) // spacing
     if i < n_taps:
         return k, i, offset + k * period + i * spacing
@@ -399,9 +405,10 @@ def advance(x, v, ids, status, event_step, p_begin, p_end, step0, n_steps, dt,
         for r in range(n_rec):
             k, i, c = _first_tap(rec_int, r, step0 if include_start else step0 + 1)
             tap_k[r], tap_i[r], tap_c[r] = k, i, c
-            if include_start and c == step0:
+            while include_start and tap_c[r] == step0:     # (two taps when frames share a step)
+                k, i = tap_k[r], tap_i[r]
                 _tap(r, k, i, rec_int, rec_w, rec_acc, rec_out, X, V, p0, n_total)
-                tap_k[r], tap_i[r], tap_c[r] = _next_tap(rec_int, r, k, i, c)
+                tap_k[r], tap_i[r], tap_c[r] = _next_tap(rec_int, r, k, i, step0)
         force_valid = False
         done = 0
         while done < n_steps:
@@ -520,7 +527,7 @@ def advance(x, v, ids, status, event_step, p_begin, p_end, step0, n_steps, dt,
                                 dead[i * d + a] = 1.0
                 # ---------------------------------------------------- recorders
                 for r in range(n_rec):
-                    if count == tap_c[r]:
+                    while count == tap_c[r]:     # (two taps when frames share a step)
                         k, i = tap_k[r], tap_i[r]
                         _tap(r, k, i, rec_int, rec_w, rec_acc, rec_out, X, V, p0, n_total)
                         tap_k[r], tap_i[r], tap_c[r] = _next_tap(rec_int, r, k, i, count)

@@ -69,11 +69,11 @@ class DetectorModel:
     seed : int
     """
 
-    def __init__(self, detector, n_particles, dims, dt, seed):
+    def __init__(self, detector, n_particles, dims, dt, seed, spawn_key=()):
         self.det = detector
         self.n, self.d, self.dt = int(n_particles), int(dims), float(dt)
         self.M = detector.matrix(self.d)
-        key = render.measurement_key(seed)
+        key = render.measurement_key(seed, spawn_key)
         self.k0, self.k1 = np.uint64(key[0]), np.uint64(key[1])
         self.sos = None
         if detector.anti_alias_cutoff is not None:
@@ -96,13 +96,20 @@ class DetectorModel:
         self.zi = None                               # anti-alias state (steady state of the first value)
 
     def state(self):
-        return {"step": np.array(self.step), "lp": np.zeros(0) if self.lp is None else self.lp.copy(),
-                "zi": np.zeros(0) if self.zi is None else self.zi.copy()}
+        """Filter states as arrays of fixed shapes (a checkpoint slot keeps its shape), with
+        flags saying whether each has been set by a first value."""
+        ch = self.n * self.d
+        n_sos = 0 if self.sos is None else self.sos.shape[0]
+        return {"step": np.array(self.step),
+                "lp_set": np.array(float(self.lp is not None)),
+                "lp": np.zeros(ch) if self.lp is None else self.lp.copy(),
+                "zi_set": np.array(float(self.zi is not None)),
+                "zi": np.zeros((n_sos, 2, ch)) if self.zi is None else self.zi.copy()}
 
     def restore(self, state):
         self.step = int(state["step"])
-        self.lp = None if state["lp"].size == 0 else np.array(state["lp"])
-        self.zi = None if state["zi"].size == 0 else np.array(state["zi"])
+        self.lp = np.array(state["lp"], dtype=float) if float(state["lp_set"]) else None
+        self.zi = np.array(state["zi"], dtype=float) if float(state["zi_set"]) else None
 
     def process(self, step0, positions):
         """Samples (k, particles, dims) V from the positions of steps step0 .. step0 + len - 1."""

@@ -49,6 +49,21 @@ def _refuse_existing(path, overwrite):
         raise ConfigError(f"{path!r}: folder {folder!r} does not exist; expected an existing folder")
 
 
+def _write_new(path, overwrite, write):
+    """``write(temp)`` at a temporary name in the folder of ``path``, then the file is put in
+    place under ``path`` (:func:`langsim.safeio.install`): a crash never leaves a half file
+    under the user's name, and an existing file is replaced only when asked, and whole."""
+    from .. import safeio
+    temp = safeio.temp_path(path)
+    try:
+        result = write(temp)
+        safeio.install(temp, path, replace=overwrite)
+    except BaseException:
+        safeio.remove(temp)
+        raise
+    return result
+
+
 def truth_rows(data, f0, f1):
     """Columns of the ground-truth table for frames f0 .. f1-1 (dict of 1D arrays)."""
     true = np.asarray(data["true_positions"][f0:f1], dtype=float)
@@ -68,31 +83,44 @@ def truth_rows(data, f0, f1):
 
 
 def export_table(data, path, overwrite=False):
-    """Write the ground truth as CSV (or Parquet for ``.parquet``); returns the rows written."""
+    """Write the ground truth as CSV (or Parquet for ``.parquet``); returns the rows written.
+
+    The table is written at a temporary name and renamed into place when complete."""
+    path = os.fspath(path)
     _refuse_existing(path, overwrite)
     n_frames = _frames(data)
     if path.endswith(".parquet"):
         try:
             import pandas as pd
-            frames = [pd.DataFrame(truth_rows(data, a, min(n_frames, a + EXPORT_CHUNK)))
-                      for a in range(0, n_frames, EXPORT_CHUNK)]
-            table = pd.concat(frames, ignore_index=True)
-            table.to_parquet(path, index=False)
         except ImportError as exc:
             raise ConfigError(f"{path!r}: Parquet needs pandas with pyarrow (pip install pandas pyarrow); "
                               f"expected a .csv name otherwise ({exc})") from None
-        return len(table)
-    rows = 0
-    with open(path, "w") as fh:
-        fh.write("frame,particle,time,x,y,z,photons,on,in_view\n")
-        for a in range(0, n_frames, EXPORT_CHUNK):
-            c = truth_rows(data, a, min(n_frames, a + EXPORT_CHUNK))
-            cols = [c[k].tolist() for k in ("frame", "particle", "time", "x", "y", "z", "photons")]
-            flags = [c["on"].astype(int).tolist(), c["in_view"].astype(int).tolist()]
-            for i, row in enumerate(zip(*cols)):
-                fh.write(",".join(map(repr, row)) + f",{flags[0][i]},{flags[1][i]}\n")
-            rows += len(cols[0])
-    return rows
+
+        def parquet(temp):
+            frames = [pd.DataFrame(truth_rows(data, a, min(n_frames, a + EXPORT_CHUNK)))
+                      for a in range(0, n_frames, EXPORT_CHUNK)]
+            table = pd.concat(frames, ignore_index=True)
+            try:
+                table.to_parquet(temp, index=False)
+            except ImportError as exc:
+                raise ConfigError(f"{path!r}: Parquet needs pandas with pyarrow (pip install pandas "
+                                  f"pyarrow); expected a .csv name otherwise ({exc})") from None
+            return len(table)
+        return _write_new(path, overwrite, parquet)
+
+    def csv(temp):
+        rows = 0
+        with open(temp, "w") as fh:
+            fh.write("frame,particle,time,x,y,z,photons,on,in_view\n")
+            for a in range(0, n_frames, EXPORT_CHUNK):
+                c = truth_rows(data, a, min(n_frames, a + EXPORT_CHUNK))
+                cols = [c[k].tolist() for k in ("frame", "particle", "time", "x", "y", "z", "photons")]
+                flags = [c["on"].astype(int).tolist(), c["in_view"].astype(int).tolist()]
+                for i, row in enumerate(zip(*cols)):
+                    fh.write(",".join(map(repr, row)) + f",{flags[0][i]},{flags[1][i]}\n")
+                rows += len(cols[0])
+        return rows
+    return _write_new(path, overwrite, csv)
 
 
 def export_tiff(data, path, attrs=None, overwrite=False):
@@ -112,10 +140,13 @@ def export_tiff(data, path, attrs=None, overwrite=False):
     if attrs:
         meta.update({k: (v.tolist() if hasattr(v, "tolist") else v) for k, v in attrs.items()})
     big = images.shape[1] * images.shape[2] * np.dtype(images.dtype).itemsize * n > 2**31
-    with tifffile.TiffWriter(path, bigtiff=big) as tif:
-        for a in range(0, n, EXPORT_CHUNK):
-            block = np.asarray(images[a:min(n, a + EXPORT_CHUNK)])
-            for j in range(block.shape[0]):
-                tif.write(block[j], contiguous=True, photometric="minisblack",
-                          description=json.dumps(meta) if a == 0 and j == 0 else None)
-    return n
+
+    def tiff(temp):
+        with tifffile.TiffWriter(temp, bigtiff=big) as tif:
+            for a in range(0, n, EXPORT_CHUNK):
+                block = np.asarray(images[a:min(n, a + EXPORT_CHUNK)])
+                for j in range(block.shape[0]):
+                    tif.write(block[j], contiguous=True, photometric="minisblack",
+                              description=json.dumps(meta) if a == 0 and j == 0 else None)
+        return n
+    return _write_new(os.fspath(path), overwrite, tiff)

@@ -292,9 +292,8 @@ def render_frame(spots, camera, frame, key, noise=True):
     return counts.astype(image_dtype(camera)) if noise else mu
 
 
-def measurement_key(seed):
-    """Philox key words of the measurement stream: child 2 of the run's SeedSequence
-    (the engine's plan: 0 initial state, 1 burn-in, 2 measurement)."""
-    child = np.random.SeedSequence(seed).spawn(3)[2]
-    words = child.generate_state(2, dtype=np.uint64)
-    return int(words[0]), int(words[1])
+def measurement_key(seed, spawn_key=()):
+    """Philox key words of the run's "measurement" noise stream
+    (:func:`langsim.seeding.stream_key`; child 2 of the run's SeedSequence)."""
+    from .. import seeding
+    return seeding.stream_key(seed, spawn_key, "measurement")

@@ -11,7 +11,6 @@ and the detector's sampling interval must be whole numbers of steps of
 expectation) and returns a :class:`Measurement` or None.
 """
 import math
-import warnings
 from dataclasses import asdict, dataclass
 
 import numpy as np
@@ -26,9 +25,6 @@ _FINITE = number()
 MAX_BITS = 32
 #: Default number of path samples per exposure for rendering (fewer when the exposure has fewer steps).
 PATH_SAMPLES = 16
-#: True once the engine's in-kernel recorders feed the measurement stage (issue 7); until then
-#: a run validates its [measurement] table but writes no group 'measured', and says so.
-RECORDED_BY_ENGINE = False
 #: Filters of the position detector.
 DETECTOR_FILTERS = ("none", "first-order", "photodiode")
 
@@ -139,10 +135,6 @@ class Measurement:
         """Exact blur coefficient of the recorded exposure average (taps at steps)."""
         w, o = self.exposure_taps()
         return formulas.tap_blur_coefficient(w, o, self.frame_steps)
-
-
-class MeasurementWarning(UserWarning):
-    """A [measurement] table that this version cannot fully honour."""
 
 
 def recorder_specs(m):
@@ -304,10 +296,6 @@ def parse(mapping, errors, dims, dt, steps):
             d["cross_talk"], (dims, dims))]
         resolved["detector"] = d
     object.__setattr__(m, "resolved", resolved)
-    if not RECORDED_BY_ENGINE and not errors.messages:
-        warnings.warn("[measurement] is validated, but this engine does not record it yet (its in-kernel "
-                      "recorder is on the way): the run writes no group 'measured'", MeasurementWarning,
-                      stacklevel=4)
     return m
 
 

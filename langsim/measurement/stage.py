@@ -54,13 +54,14 @@ class MeasurementStage:
     measurement : langsim.measurement.spec.Measurement
     n_particles, dims : int
     seed : int, the run's seed (the measurement stream is its child 2)
+    spawn_key : tuple of int, the run's spawn key (a sweep child's)
     """
 
-    def __init__(self, measurement, n_particles, dims, seed):
+    def __init__(self, measurement, n_particles, dims, seed, spawn_key=()):
         self.m = measurement
         self.n = int(n_particles)
         self.d = int(dims)
-        self.key = render.measurement_key(seed)
+        self.key = render.measurement_key(seed, spawn_key)
         self.k0, self.k1 = np.uint64(self.key[0]), np.uint64(self.key[1])
         self.brightness = self._brightness()
         self.reset()
@@ -286,29 +287,45 @@ def measure(positions, measurement, seed, chunk=64):
     return {name: np.concatenate([p[name] for p in parts]) for name in parts[0]}
 
 
+#: Bytes of images rendered before they are handed to the sink (bounds memory per write).
+IMAGE_BATCH_BYTES = 16 * 2**20
+
+
 class EngineAdapter:
     """Everything the engine needs to run a ``[measurement]``, in a few calls.
 
     ``recorders()`` lists the recorders to attach (keyword dicts for
     ``engine.Recorder``); ``layout(n_steps)`` the datasets to declare
-    ({group: (n_frames, [(name, frame shape, units, dtype), ...])}, attributes in
-    ``attributes()``); ``frames(burst_frames, first)`` turns one burst's recorder
-    frames of group ``measured`` into the arrays to write (a detector's every-step
-    positions go through ``detector(step0, positions)``); ``state()`` and
-    ``restore(arrays)`` carry the stage's state through a checkpoint (named arrays).
+    ({group: (n_frames, [(name, frame shape, units, dtype, attributes), ...])});
+    ``write(sink, frames)`` turns one burst's recorder frames into the instrument's
+    output and hands it to the sink (``frames(...)`` and ``detector(...)`` do
+    the two halves); ``state()`` and ``restore(arrays)`` carry the stage's state
+    through a checkpoint (named arrays of fixed shapes).
+
+    The camera writes group ``measured``; a position detector writes
+    ``measured/signal`` when there is no camera, else group ``detector`` (its
+    samples have their own clock).
     """
+
+    #: Names of the recorders whose frames go through the adapter (not straight to the sink).
+    RECORDERS = ("true_positions", "path", "detector_positions")
 
     def __init__(self, spec):
         from . import spec as _spec
         self.m = spec.measurement
         p = spec.particles
         self.n, self.d = p.count, p.dimensions
+        self.dt = spec.dynamics.dt
         self.specs = _spec.recorder_specs(self.m)
-        self.camera = MeasurementStage(self.m, self.n, self.d, spec.seed) if self.m.frame_steps else None
+        spawn_key = tuple(getattr(spec, "spawn_key", ()) or ())
+        self.camera = (MeasurementStage(self.m, self.n, self.d, spec.seed, spawn_key)
+                       if self.m.frame_steps else None)
         self.detector_model = None
         if self.m.detector is not None:
             from .detector import DetectorModel
-            self.detector_model = DetectorModel(self.m.detector, self.n, self.d, spec.dynamics.dt, spec.seed)
+            self.detector_model = DetectorModel(self.m.detector, self.n, self.d, self.dt, spec.seed,
+                                                spawn_key)
+        self.detector_group = "measured" if self.camera is None else "detector"
 
     def recorders(self):
         return [dict(r) for r in self.specs]
@@ -317,17 +334,19 @@ class EngineAdapter:
         out = {}
         if self.camera is not None:
             out["measured"] = (self.m.n_frames(n_steps),
-                               [(s.name, s.shape, s.units, s.dtype) for s in self.camera.datasets()])
+                               [(s.name, s.shape, s.units, s.dtype, s.attrs)
+                                for s in self.camera.datasets() if s.name != "time"])
         if self.detector_model is not None:
-            k = self.m.detector.sampling_steps
-            out["detector"] = (n_steps // k + 1, [("signal", (self.n, self.d), "V", np.float64)])
+            det = self.m.detector
+            out[self.detector_group] = (n_steps // det.sampling_steps + 1, [
+                ("signal", (self.n, self.d), "V", np.float64,
+                 {"meaning": "position detector output", "sampling_rate": 1.0 / (det.sampling_steps * self.dt),
+                  "sensitivity": list(det.sensitivity)})])
         return out
 
     def attributes(self):
-        """{dataset path: attributes} to store beside the data (units are in the layout)."""
-        if self.camera is None:
-            return {}
-        return {f"measured/{s.name}": s.attrs for s in self.camera.datasets()}
+        """{dataset path: attributes} stored beside the data (also the 5th element of the layout)."""
+        return {f"{group}/{e[0]}": e[4] for group, (_, sets) in self.layout(0).items() for e in sets}
 
     def frames(self, frames, first):
         """Arrays for group ``measured`` from recorder frames {"true_positions": ..., "path": ...}."""
@@ -336,6 +355,33 @@ class EngineAdapter:
     def detector(self, step0, positions):
         """Detector samples (V) of the steps step0 .. step0 + len(positions) - 1."""
         return self.detector_model.process(step0, positions)
+
+    def write(self, sink, frames):
+        """Process one burst's frames and write them: ``frames`` = {recorder name: (first frame, array)}."""
+        if self.camera is not None and "true_positions" in frames:
+            first, avg = frames["true_positions"]
+            path = None
+            if "path" in frames:
+                p_first, path = frames["path"]
+                if p_first != first or len(path) != len(avg):
+                    raise RuntimeError(f"measurement recorders out of step: exposure frames {first}+{len(avg)}, "
+                                       f"path frames {p_first}+{len(path)}")
+            per = max(1, len(avg))
+            if self.m.camera is not None:
+                rows, cols = self.m.camera.image_shape
+                per = max(1, IMAGE_BATCH_BYTES // (rows * cols * 4))
+            for j in range(0, len(avg), per):
+                out = self.camera.process(first + j, avg[j:j + per], None if path is None else path[j:j + per])
+                time = out.pop("time")
+                sink.write("measured", first + j, time, out)
+        if self.detector_model is not None and "detector_positions" in frames:
+            step0, x = frames["detector_positions"]
+            if len(x):
+                v = self.detector_model.process(step0, x)
+                if len(v):
+                    k = self.m.detector.sampling_steps
+                    s0 = -(-step0 // k)
+                    sink.write(self.detector_group, s0, (s0 + np.arange(len(v))) * (k * self.dt), {"signal": v})
 
     def state(self):
         out = {}
