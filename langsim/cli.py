@@ -338,6 +338,8 @@ def cmd_info(args):
             + (f", velocities {traj.velocities.dtype}" if traj.velocities is not None else "")
             + f", compression {comp}",
         ]
+        from .measurement.commands import info_lines    # groups of a [measurement] table
+        lines += info_lines(traj)
         state = traj.file_state
         if state == "complete":
             lines.append("status       complete")

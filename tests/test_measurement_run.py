@@ -156,3 +156,31 @@ def test_kill_then_resume_with_images_is_bit_identical(tmp_path):
             assert set(f[group]) == set(mine)
             for name in mine:
                 np.testing.assert_array_equal(f[group][name][:], mine[name], err_msg=f"{group}/{name}")
+
+
+def test_check_rows_of_a_trapped_bead_with_localization_error():
+    # 16 beads in traps (tau = 10 ms) filmed at 100 frames/s with 5 ms exposures and 5 nm
+    # localization error; check-values sections 8 and 13: the exposure averages' variance is
+    # (kT/k) S(W/tau) (exact form for the taps on the Euler-Maruyama chain), the reported
+    # positions add sigma^2 to it and 2 sigma^2 to the MSD (Berglund 2010; Wong & Halvorsen 2006)
+    cfg = {"seed": 41, "particles": {"count": 16, "dimensions": 2, "friction": 1e-8},
+           "potential": [{"type": "harmonic", "stiffness": 1e-6}],
+           "dynamics": {"dt": 1e-4, "duration": 20.0}, "output": {"every": 100},
+           "measurement": {"frame_rate": 100.0, "exposure": 0.005, "localization_error": 5e-9}}
+    traj = langsim.run(cfg, progress=False)
+    rows = {r.quantity: r for r in langsim.check(traj).rows}
+    for a in "xy":
+        for q in (f"blurred variance {a}", f"measured variance {a}", f"localization MSD offset {a}",
+                  f"stiffness {a} (blurred trap)"):
+            assert rows[q].status == "pass", rows[q]
+        assert rows[f"localization MSD offset {a}"].predicted == 2 * 5e-9 ** 2
+        assert rows[f"localization MSD offset {a}"].error < 0.02 * 2 * 5e-9 ** 2    # resolves sigma
+    # 10 % more noise variance than configured in the file is caught
+    m = traj.measured
+    extra = np.sqrt(0.1) * 5e-9 * np.random.default_rng(2).standard_normal(m["positions"].shape)
+    traj.measured = dict(m, positions=m["positions"] + extra)
+    bad = {r.quantity: r for r in langsim.check(traj).rows}
+    assert bad["localization MSD offset x"].status == "fail" and bad["localization MSD offset y"].status == "fail"
+    # the blurred variance row fails on exposure averages of the wrong exposure (instantaneous positions)
+    traj.measured = dict(m, true_positions=np.asarray(traj.positions)[:len(m["time"])])
+    assert {r.quantity: r for r in langsim.check(traj).rows}["blurred variance x"].status == "fail"

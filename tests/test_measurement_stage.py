@@ -159,9 +159,7 @@ def test_check_rows_of_a_measured_run():
                            "drift_velocity": [3e-7, 0.0], "photons": 1500.0, "pixel_size": 100e-9,
                            "image_shape": [128, 128], "psf_sigma": 100e-9, "background": 4.0, "gain": 2.0,
                            "read_noise": 1.2}}
-    spec = config.load(cfg)
-    traj = langsim.run(cfg, progress=False)
-    traj.measured = measure(np.asarray(traj.positions), spec.measurement, spec.seed)
+    traj = langsim.run(cfg, progress=False)          # the engine records group measured
     report = langsim.check(traj)
     keys = {r.quantity: r for r in report.rows}
     for q in ("displacement variance x", "displacement lag-1 covariance y", "D (covariance estimator)",
@@ -179,6 +177,9 @@ def test_check_rows_of_a_measured_run():
     bad = {r.quantity: r for r in langsim.check(traj).rows}
     assert bad["displacement variance x"].status == "fail"
     assert bad["localization variance (covariance estimator)"].status == "fail"
+    for a in "xy":      # MSD offset 2 sigma^2 (check-values section 8): passes on the run, fails here
+        assert keys[f"localization MSD offset {a}"].status == "pass", keys[f"localization MSD offset {a}"]
+        assert bad[f"localization MSD offset {a}"].status == "fail"
 
 
 def test_engine_adapter_in_chunks_with_a_checkpoint_matches_one_pass():

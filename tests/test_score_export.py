@@ -2,8 +2,8 @@
 
 The expected recall, precision and RMSE follow from how the table was made (binomial
 counts, Gaussian errors: common practice); matching uses scipy's linear_sum_assignment.
-Until the engine writes group 'measured' itself, the test writes it with h5py from the
-measurement stage (the layout README documents).
+The engine writes group 'measured'; the test checks it against the measurement stage run
+on every-step positions (the layout README documents).
 """
 import csv
 import json

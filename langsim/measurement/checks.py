@@ -29,6 +29,9 @@ from .spec import Detector, shutter_taps
 
 AXES = "xyz"
 SRC_BLUR = "Berglund 2010, PRE 82, 011917; Vestergaard, Blainey & Flyvbjerg 2014, PRE 89, 022726"
+#: Localization noise raises the MSD at every lag by 2 sigma^2 (check-values sections 8 and 13).
+SRC_LOC = ("Berglund 2010, PRE 82, 011917 (MSD offset 2 sigma^2); Wong & Halvorsen 2006, Opt. Express 14, "
+           "12517 (static noise adds to C_0 only)")
 SRC_WH = "Wong & Halvorsen 2006, Opt. Express 14, 12517; exact form for the recorder's taps derived"
 SRC_CAM = "Poisson photons; EM excess noise F^2 = 2 (Mortensen et al. 2010, Nat. Methods 7, 377)"
 SRC_DET = "Berg-Sorensen et al. 2003, J. Appl. Phys. 93, 3167; ML fit as Berg-Sorensen & Flyvbjerg 2004"
@@ -117,6 +120,7 @@ def measurement_rows(report, traj, s, kw):
                                             est.localization_variance_err_, sig[axes[0]] ** 2,
                                             "sigma^2 = localization_error^2", SRC_BLUR, "m^2", **kw))
         true = np.asarray(data["true_positions"][start:], dtype=float)
+        _localization_rows(report, y, true, sig, _row, kw)
         for a in range(s.d):
             if kinds[a] != "harmonic" or s.regime != "overdamped":
                 continue
@@ -133,13 +137,18 @@ def measurement_rows(report, traj, s, kw):
                 pred, form = wh, "(kT/k) S(W/tau), W/tau = " + f"{exposure / tau:.4g}"
             report.rows.append(_replica_row(_row, f"blurred variance {AXES[a]}", np.mean(x * x, axis=0), pred,
                                             form, SRC_WH, "m^2", kw))
+            if sig[a] > 0:      # what the instrument reports: the blurred variance + sigma^2
+                xm = y[:, :, a] - s.center[a]
+                report.rows.append(_replica_row(_row, f"measured variance {AXES[a]}", _nanmean(xm * xm), pred + sig[a] ** 2,
+                                                "blurred variance + sigma^2, sigma = localization_error = "
+                                                f"{sig[a]:.4g} m", SRC_LOC, "m^2", kw))
             if exposure > 0 and interval < 3 * tau:
                 from ..analysis import BlurredTrap
                 try:
                     est = BlurredTrap(s.kT, interval, exposure, center=0.0).fit(x)
                     report.rows.append(_row(f"stiffness {AXES[a]} (blurred trap)", est.stiffness_, est.stiffness_err_,
                                             k, "from blurred variance and lag-1 covariance; naive kT/var = "
-                                            f"{est.naive_stiffness_:.4g}", SRC_WH, "N/m", **kw))
+                                            f"{est.naive_stiffness_ * 1e3:.4g} pN/nm", SRC_WH, "N/m", **kw))
                 except ValueError as e:
                     report.notes.append(f"blurred trap {AXES[a]} skipped: {e}")
     if "images" in data:
@@ -148,6 +157,23 @@ def measurement_rows(report, traj, s, kw):
             _spot_rows(report, data, m, _row, kw)
     if "signal" in data and m.get("detector"):
         _detector_rows(report, data, cfg, s, _row, kw)
+
+
+def _localization_rows(report, y, true, sig, _row, kw):
+    """Per axis with localization error: the offset of the reported positions' MSD (drift
+    removed) over that of the exposure averages, against 2 sigma^2. The noise e is independent
+    of the path, so the offset is E[(Delta e)^2] at every lag; it is estimated from the
+    one-frame differences of e = reported - true (the path's own displacements, which only
+    add variance, drop out); particles as replicas."""
+    de = np.diff(y - true, axis=0)
+    for a in range(y.shape[2]):
+        if sig[a] <= 0:
+            continue
+        per = _nanmean(de[:, :, a] ** 2)
+        report.rows.append(_replica_row(_row, f"localization MSD offset {AXES[a]}", per, 2.0 * sig[a] ** 2,
+                                        "MSD(positions) - MSD(true_positions) = <(Delta e)^2> = 2 sigma^2, "
+                                        f"one frame, sigma = localization_error = {sig[a]:.4g} m", SRC_LOC,
+                                        "m^2", kw))
 
 
 def theory_em_variance(s, a):

@@ -20,6 +20,27 @@ positions in metres in the image frame) and its images as a multi-page TIFF.
 """
 
 
+def info_lines(traj):
+    """Lines of ``langsim info`` for the groups a [measurement] table wrote (none without one)."""
+    m = traj.config.get("measurement")
+    lines = []
+    for name in ("measured", "detector"):
+        group = traj.groups.get(name)
+        if not group or m is None:
+            continue
+        n = len(group["time"])
+        sets = ", ".join(k for k in group if k != "time")
+        if "signal" in group:                 # a detector's samples (its own clock)
+            what = f"{n} samples at {m['detector']['sampling_rate']:.6g} Hz"
+        else:
+            what = f"{n} frames at {m['frame_rate']:.6g} Hz, exposure {m['exposure'] * 1e3:.4g} ms"
+            if "images" in group:
+                rows, cols = group["images"].shape[1:]
+                what += f", images {rows} x {cols} {group['images'].dtype}"
+        lines.append(f"{name:<12} {what}: {sets}")
+    return lines
+
+
 def add_commands(sub, cmd_wrapper=None):
     from argparse import RawDescriptionHelpFormatter as Raw
     p = sub.add_parser("score", help="score your localizations or tracks against the ground truth",
