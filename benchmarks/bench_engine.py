@@ -207,20 +207,25 @@ sim.initial_state()
 mark("equilibrium sampler")
 sim.compile()
 mark("kernel")
-traj = langsim.run(cfg, progress=False)
-mark("run (1000 steps)")
-langsim.check(traj)
-mark("check (imports analysis)")
+if sys.argv[2] == "full":
+    traj = langsim.run(cfg, progress=False)
+    mark("run (1000 steps)")
+    langsim.check(traj)
+    mark("check (imports analysis)")
 json.dump({"phases": phases, "compiled": compiled, "llvm_lock_s": llvm[0]}, sys.stdout)
 '''
 
 
-def startup(cache_dir):
-    """The child's phases in a fresh process using ``cache_dir`` (NUMBA_CACHE_DIR unset)."""
+def startup(cache_dir, cfg=None, full=True):
+    """The child's phases in a fresh process using ``cache_dir`` (NUMBA_CACHE_DIR unset).
+
+    ``cfg``: the config (default: :func:`startup_config`); ``full``: also run it and check
+    the result (else stop after compiling the kernel)."""
     env = {k: v for k, v in os.environ.items() if k != "NUMBA_CACHE_DIR"}
     env["LANGSIM_CACHE_DIR"] = cache_dir
     t0 = time.perf_counter()
-    out = subprocess.run([sys.executable, "-c", _CHILD, json.dumps(startup_config())],
+    cfg = startup_config() if cfg is None else cfg
+    out = subprocess.run([sys.executable, "-c", _CHILD, json.dumps(cfg), "full" if full else "kernel"],
                          capture_output=True, text=True, env=env, cwd=tempfile.gettempdir())
     wall = time.perf_counter() - t0
     if out.returncode != 0:
@@ -236,6 +241,21 @@ def compile_summary(compiled, min_s=0.05):
     """Top-level compiles and the functions compiled inside them (depth 1), slowest first."""
     rows = [c for c in compiled if c["depth"] <= 1 and c["s"] >= min_s]
     return sorted(rows, key=lambda c: (c["depth"], -c["s"]))
+
+
+def write_results(name, load_before, load_after, **fields):
+    """benchmarks/results/``name``: the date, the machine load, versions, then ``fields``."""
+    import numba
+
+    import langsim
+    os.makedirs(os.path.join(HERE, "results"), exist_ok=True)
+    with open(os.path.join(HERE, "results", name), "w") as fh:
+        json.dump({"date": time.strftime("%Y-%m-%d %H:%M:%S %z"),
+                   "load_before": load_before, "load_after": load_after,
+                   "cpu_count": os.cpu_count(), "machine": platform.platform(),
+                   "python": sys.version.split()[0], "numpy": np.__version__,
+                   "numba": numba.__version__, "langsim": langsim.__version__, **fields},
+                  fh, indent=2)
 
 
 # -------------------------------------------------------------------- main
@@ -324,19 +344,8 @@ def main(argv=None):
         print(f"    LLVM (numba:llvm_lock) {start['first']['llvm_lock_s']:.2f} s in all")
     print(f"load after: {load_after['uptime'] or load_after['loadavg']}")
 
-    os.makedirs(os.path.join(HERE, "results"), exist_ok=True)
-    import langsim
-    import numba
-    with open(os.path.join(HERE, "results", "engine.json"), "w") as fh:
-        json.dump({"date": time.strftime("%Y-%m-%d %H:%M:%S %z"),
-                   "load_before": load_before, "load_after": load_after,
-                   "cpu_count": os.cpu_count(), "machine": platform.platform(),
-                   "python": sys.version.split()[0], "numpy": np.__version__,
-                   "numba": numba.__version__, "langsim": langsim.__version__,
-                   "quick": args.quick, "repeat": repeat,
-                   "floor_ns_per_variate": floor, "rows": rows, "bursts": bursts,
-                   "startup": start}, fh, indent=2)
-
+    write_results("engine.json", load_before, load_after, quick=args.quick, repeat=repeat,
+                  floor_ns_per_variate=floor, rows=rows, bursts=bursts, startup=start)
 
 if __name__ == "__main__":
     main()
