@@ -103,12 +103,15 @@ def compile_rows():
             warm = startup(cache, cfg, full=False)
         finally:
             shutil.rmtree(cache, ignore_errors=True)
-        phase = {p["phase"]: p for p in cold["phases"]}
+        kernel_cold = {p["phase"]: p for p in cold["phases"]}["kernel"]
+        kernel_warm = {p["phase"]: p for p in warm["phases"]}["kernel"]
         rows.append({"kind": kind, "scheme": name, "regime": regime,
-                     "cold_kernel_s": phase["kernel"]["wall_s"],
-                     "cold_total_s": cold["total_wall_s"], "cold_process_s": cold["process_wall_s"],
-                     "warm_kernel_s": {p["phase"]: p for p in warm["phases"]}["kernel"]["wall_s"],
-                     "warm_total_s": warm["total_wall_s"], "warm_process_s": warm["process_wall_s"],
+                     "cold_kernel_s": kernel_cold["wall_s"], "cold_kernel_cpu_s": kernel_cold["cpu_s"],
+                     "cold_total_s": cold["total_wall_s"], "cold_total_cpu_s": cold["total_cpu_s"],
+                     "cold_process_s": cold["process_wall_s"],
+                     "warm_kernel_s": kernel_warm["wall_s"], "warm_kernel_cpu_s": kernel_warm["cpu_s"],
+                     "warm_total_s": warm["total_wall_s"], "warm_total_cpu_s": warm["total_cpu_s"],
+                     "warm_process_s": warm["process_wall_s"],
                      "cold_phases": cold["phases"], "warm_phases": warm["phases"]})
     return rows
 
@@ -163,13 +166,15 @@ def main(argv=None):
     print("  (ns per 1D particle-step, harmonic trap; floor = numpy floor x variates per step;"
           " 1 p and 1 thr: CPU time; 2 thr: wall time; 2/1: wall 1 thr / wall 2 thr)")
     if compiles:
-        print("kernel start-up in a fresh process (s wall): cold = empty cache, warm = its cache")
-        print(f"  {'kind':<10} {'scheme':<20} {'cold kernel':>11} {'cold total':>10} "
-              f"{'warm kernel':>11} {'warm total':>10}")
+        print("kernel start-up in a fresh process, s wall (s CPU): cold = empty cache, warm = its cache")
+        print(f"  {'kind':<10} {'scheme':<20} {'cold kernel':>15} {'cold total':>15} "
+              f"{'warm kernel':>13} {'warm total':>13}")
         for c in compiles:
             print(f"  {c['kind']:<10} {c['scheme'] + ' ' + c['regime'][:5]:<20} "
-                  f"{c['cold_kernel_s']:11.2f} {c['cold_total_s']:10.2f} "
-                  f"{c['warm_kernel_s']:11.2f} {c['warm_total_s']:10.2f}")
+                  f"{c['cold_kernel_s']:6.2f} ({c['cold_kernel_cpu_s']:6.2f}) "
+                  f"{c['cold_total_s']:6.2f} ({c['cold_total_cpu_s']:6.2f}) "
+                  f"{c['warm_kernel_s']:5.2f} ({c['warm_kernel_cpu_s']:5.2f}) "
+                  f"{c['warm_total_s']:5.2f} ({c['warm_total_cpu_s']:5.2f})")
         print("  (total: import numba, import langsim, Simulation, equilibrium sampler, kernel)")
     print(f"load after: {load_after['uptime'] or load_after['loadavg']}")
 
