@@ -10,6 +10,7 @@ equilibrium by a burn-in run of the dynamics (see ``[particles] burn_in``).
 Velocities are drawn from the Maxwell-Boltzmann distribution.
 """
 import math
+import threading
 
 import numpy as np
 
@@ -26,11 +27,14 @@ def axis_energy(terms, axis, dimensions, grid, time=0.0):
     other coordinates held at 0 (for separable terms only an additive constant
     depends on them)."""
     codes, params = _pot.builtin_rows(terms, dimensions)
+    return _rows_energy(codes, params, axis, dimensions, grid, time)
+
+
+def _rows_energy(codes, params, axis, dimensions, grid, time=0.0):
     X = np.zeros((grid.size, dimensions))
     X[:, axis] = grid
-    F = np.empty_like(X)
     energy = np.empty(grid.size)
-    builtin_forces(codes, params, X, time, F, energy, True)
+    builtin_forces(codes, params, X, time, np.empty_like(X), energy, True)
     return energy
 
 
@@ -77,16 +81,40 @@ def sample_axis(terms, axis, dimensions, kT, uniforms):
                               "initial point or add a confining term")
         return None
     lo, hi, confined = found
-    grid = np.linspace(lo, hi, GRID_POINTS)
     use = terms if confined else [t for t in terms if not isinstance(t, _pot.ConstantForce)]
     if not confined:
         use = [_pot.Periodic(t.barrier, t.period, 0.0, t.axis, t.center) if isinstance(t, _pot.Periodic)
                else t for t in use]
-    energy = axis_energy([t.static() for t in use], axis, dimensions, grid)
+    codes, params = _pot.builtin_rows([t.static() for t in use], dimensions)
+    key = (codes.tobytes(), params.tobytes(), axis, dimensions, float(lo), float(hi), float(kT))
+    with _CDF_LOCK:
+        table = _CDF_CACHE.pop(key, None)
+    if table is None:
+        table = _axis_cdf(codes, params, axis, dimensions, lo, hi, kT)
+    with _CDF_LOCK:
+        _CDF_CACHE[key] = table                  # most recently used last
+        while len(_CDF_CACHE) > CDF_CACHE_SIZE:
+            del _CDF_CACHE[next(iter(_CDF_CACHE))]
+    cdf, grid = table
+    return np.interp(uniforms, cdf, grid)
+
+
+#: Inverse-CDF tables kept per (potential rows, axis, range, kT): runs that differ only in
+#: their seed (replicates of a sweep point) share them. Each is 1 MiB.
+CDF_CACHE_SIZE = 16
+_CDF_CACHE = {}
+_CDF_LOCK = threading.Lock()
+
+
+def _axis_cdf(codes, params, axis, dimensions, lo, hi, kT):
+    """(cdf, grid) of the Boltzmann density on ``axis`` over [lo, hi], read-only arrays."""
+    grid = np.linspace(lo, hi, GRID_POINTS)
+    energy = _rows_energy(codes, params, axis, dimensions, grid)
     weight = np.exp(-(energy - energy.min()) / kT)
     cdf = np.concatenate(([0.0], np.cumsum(0.5 * (weight[1:] + weight[:-1]) * np.diff(grid))))
     cdf /= cdf[-1]
-    return np.interp(uniforms, cdf, grid)
+    cdf.flags.writeable = grid.flags.writeable = False
+    return cdf, grid
 
 
 def initial_positions(spec, rng):
