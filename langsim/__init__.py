@@ -6,11 +6,11 @@ import importlib
 
 __version__ = "0.1.0"
 
-__all__ = ["run", "load", "check", "escape_rate", "Trajectory", "potentials", "__version__"]
+__all__ = ["run", "load", "check", "escape_rate", "sweep", "Trajectory", "potentials", "__version__"]
 
 _LAZY = {"run": ("engine", "run"), "load": ("trajectory", "load"),
          "Trajectory": ("trajectory", "Trajectory"), "check": ("checks", "check"),
-         "escape_rate": ("rates", "escape_rate"),
+         "escape_rate": ("rates", "escape_rate"), "sweep": ("sweeps", "sweep"),
          "potentials": ("potentials", None)}
 
 

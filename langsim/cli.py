@@ -140,6 +140,8 @@ def build_parser():
     p.add_argument("--json", action="store_true", help="print the result as JSON")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
     p.set_defaults(func=cmd_rate)
+    from .sweeps.cli import add_parser as add_sweep
+    add_sweep(sub, argparse.RawDescriptionHelpFormatter)
     return parser
 
 
