@@ -60,21 +60,6 @@ def add_parser(sub, formatter):
     p.set_defaults(func=cmd_sweep)
 
 
-def _plots_folder(path, overwrite):
-    from ..validation import ConfigError
-    if os.path.exists(path):
-        if not os.path.isdir(path):
-            raise ConfigError(f"--plots {path!r}: is a file; expected a folder")
-        old = [n for n in os.listdir(path) if n.endswith(".png")]
-        if old and not overwrite:
-            raise ConfigError(f"--plots {path!r}: already holds figures ({', '.join(old[:3])}"
-                              f"{', ...' if len(old) > 3 else ''}); expected a new or empty folder, "
-                              "or --overwrite to replace them")
-    elif not os.path.isdir(os.path.dirname(os.path.abspath(path))):
-        raise ConfigError(f"--plots {path!r}: folder {os.path.dirname(os.path.abspath(path))!r} does "
-                          "not exist; expected an existing parent folder")
-
-
 def _executor(args):
     """(executor, closer) for --dask, or (None, None)."""
     from ..validation import ConfigError
@@ -116,7 +101,8 @@ def cmd_sweep(args):
     if os.path.abspath(out) == os.path.abspath(args.sweep_file):
         raise ConfigError(f"-o {out!r}: is the sweep file itself; expected a folder name")
     if args.plots is not None:
-        _plots_folder(args.plots, args.overwrite)
+        from .report import check_plots_folder
+        check_plots_folder(args.plots, args.overwrite, "--plots")
     executor, close = _executor(args)
     previous = signal.signal(signal.SIGTERM, _terminate)
     notes = (lambda text: None) if args.quiet else (lambda text: print(text, file=sys.stderr))

@@ -111,6 +111,24 @@ def _key_unit(path):
     return KEY_UNITS.get(path.split(".")[-1], ("", 1.0))
 
 
+def check_plots_folder(directory, overwrite=False, name="plots"):
+    """Refuse a figures folder that is a file, lacks its parent, or holds figures (unless
+    ``overwrite``); nothing is created."""
+    directory = os.fspath(directory)
+    if os.path.exists(directory):
+        if not os.path.isdir(directory):
+            raise ConfigError(f"{name} {directory!r}: is a file; expected a folder")
+        old = [n for n in os.listdir(directory) if n.endswith(".png")]
+        if old and not overwrite:
+            raise ConfigError(f"{name} {directory!r}: already holds figures ({', '.join(old[:3])}"
+                              f"{', ...' if len(old) > 3 else ''}); expected a new or empty folder, "
+                              "or overwrite (--overwrite) to replace them")
+    elif not os.path.isdir(os.path.dirname(os.path.abspath(directory))):
+        raise ConfigError(f"{name} {directory!r}: folder {os.path.dirname(os.path.abspath(directory))!r} "
+                          "does not exist; expected an existing parent folder")
+    return directory
+
+
 def _prepare(directory, overwrite):
     try:
         import matplotlib
@@ -118,17 +136,8 @@ def _prepare(directory, overwrite):
         import matplotlib.pyplot as plt
     except ImportError as exc:
         raise ImportError("sweep figures need matplotlib: pip install langsim[plot]") from exc
-    directory = os.fspath(directory)
-    if os.path.exists(directory):
-        if not os.path.isdir(directory):
-            raise ConfigError(f"plots {directory!r}: is a file; expected a folder")
-        old = [n for n in os.listdir(directory) if n.endswith(".png")]
-        if old and not overwrite:
-            raise ConfigError(f"plots {directory!r}: already holds figures ({', '.join(old[:3])}"
-                              f"{', ...' if len(old) > 3 else ''}); expected a new or empty folder, "
-                              "or overwrite (--overwrite) to replace them")
-    else:
-        os.makedirs(directory)
+    directory = check_plots_folder(directory, overwrite)
+    os.makedirs(directory, exist_ok=True)
     return plt, directory
 
 
