@@ -251,8 +251,8 @@ def test_kill_9_then_resume_equals_an_uninterrupted_sweep(tmp_path):
     finished = log.read_text().count("\n")
     assert 1 <= finished < 6, "the sweep was not killed mid-way"
     time.sleep(1.0)                               # workers end with their parent
-    partial = [n for n in os.listdir(out) if n.endswith(".h5")
-               and langsim.load(out / n).state != "complete"]
+    from langsim.trajectory import read_state
+    partial = [n for n in os.listdir(out) if n.endswith(".h5") and read_state(out / n)["state"] != "complete"]
     resumed = cli("sweep", sweep_file, "--workers", "2", "--resume")
     assert resumed.returncode == 0, resumed.stderr
     assert "resuming the sweep" in resumed.stderr
