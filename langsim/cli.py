@@ -331,6 +331,9 @@ def cmd_info(args):
         for i, term in enumerate(terms):
             lines.append(("potential    " if i == 0 else "             ") + _term_line(term))
         lines = _own_terms(cfg, lines)
+        if cfg.get("truth"):
+            from .truth import describe
+            lines.append("truth        " + describe(cfg["truth"], traj.units.get("positions", "m")))
         interval = dyn["dt"] * out["every"]
         lines += [
             f"seed         {cfg['seed']}",

@@ -315,6 +315,8 @@ def _load(mapping, path):
     spec = RunSpec(seed, particles, medium, tuple(terms), dynamics, output, resolved,
                    measurement=measurement, units=_osc.units_of(oscillator), spawn_key=spawn_key,
                    user_curvature=user_k, escape=escape)
+    from .truth import ground_truth
+    resolved["truth"] = ground_truth(spec)      # what an analysis is compared with
     _guard_step(spec, path)
     surface.fixed_height_warnings(spec, f"{path}: " if path else "")
     _osc.quantum_warnings(spec, path)

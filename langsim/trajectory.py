@@ -228,7 +228,7 @@ CHUNK_TARGET_BYTES = 2**20
 CHUNK_MAX_BYTES = 64 * 2**20
 #: Resolved-config keys that do not change the simulated numbers; a resume may differ in them.
 RESUME_IGNORED = (("output", "path"), ("output", "checkpoint_every"), ("output", "compression"),
-                  ("dynamics", "allow_unstable"))
+                  ("dynamics", "allow_unstable"), ("truth",))
 #: Values of the root attribute ``state``.
 STATE_RUNNING = "running"          # being written, or the writer was killed
 STATE_INTERRUPTED = "interrupted"  # stopped on request at a checkpoint; resumable
