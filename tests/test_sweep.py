@@ -6,6 +6,7 @@ Reference for the verdict: the standard normal (scipy.stats.norm) and the exact
 binomial interval of scipy.stats.binomtest (Clopper & Pearson 1934).
 """
 import json
+import math
 import os
 import signal
 import subprocess
@@ -297,3 +298,52 @@ def test_calibration_verdict_on_a_sweep(grid):
         scaled["z"] = (scaled["measured"] - scaled["predicted"]) / scaled["error"]
         bad = calibration(scaled)
         assert bad.passed is False and word in bad.verdict, (factor, bad.verdict)
+
+
+def test_cost_table_says_where_each_runs_time_went(grid):
+    result, _ = grid
+    costs = result.costs
+    assert list(costs.columns[:3]) == ["potential.0.stiffness", "replicate", "status"]
+    assert len(costs) == 6 and (costs["steps"] >= 2**14).all()
+    parts = costs[["setup", "compile", "stepping", "checks", "analyze"]].to_numpy(float)
+    assert (parts >= 0).all()
+    # the parts are measured inside the task: together at most its wall time
+    assert (parts.sum(axis=1) <= costs["wall_time"].to_numpy(float) * (1 + 1e-9)).all()
+    text = result.cost_summary()
+    lines = text.splitlines()
+    assert "stiffness=2e-06" in text and "stiffness=4e-06" in text
+    assert lines[-1].startswith("this call: 6 runs") and lines[-2].startswith("all runs")
+
+
+def test_fitted_ratio_error_bar_covers_68_percent():
+    """The legend's measured/theory ratio: inverse-variance weighted mean and its standard
+    error 1/sqrt(sum w) (Bevington & Robinson, Data Reduction and Error Analysis, 3rd ed.,
+    eq. 4.17-4.19, from memory). Coverage over 2000 experiments of 5 points with Gaussian
+    errors must be P(|Z| < 1) = 0.6827 within 4.5 binomial standard errors; error bars
+    claimed half as large fail the same bound."""
+    from langsim.sweeps.report import fitted_ratio
+    rng = np.random.default_rng(9)
+    n = 2000
+    predicted = np.array([1.0, 2.0, 5.0, 10.0, 20.0])
+    sigma = np.array([0.05, 0.1, 0.2, 0.3, 1.0])
+    r, w = [], []
+    for _ in range(n):
+        measured = predicted + sigma * rng.standard_normal(5)
+        ratio, err = fitted_ratio(measured, sigma, predicted)
+        r.append(ratio)
+        w.append(err)
+    r, w = np.array(r), np.array(w)
+    p = math.erf(1 / math.sqrt(2))
+    bound = 4.5 * math.sqrt(p * (1 - p) / n)
+    assert abs(np.mean(np.abs(r - 1) < w) - p) < bound
+    assert abs(np.mean(np.abs(r - 1) < 0.5 * w) - p) > bound
+    assert all(math.isnan(v) for v in fitted_ratio([1.0], [0.0], [1.0]))     # no usable row
+
+
+def test_figures_of_a_sweep(grid, tmp_path):
+    result, _ = grid
+    paths = result.plot(tmp_path / "figs")
+    names = {os.path.basename(p) for p in paths}
+    assert "z_scores.png" in names and "variance.x.png" in names
+    with pytest.raises(ConfigError, match="already holds figures"):
+        result.plot(tmp_path / "figs")

@@ -127,6 +127,7 @@ def cmd_sweep(args):
             print(f"  run {i} failed: {str(row['message']).splitlines()[0] if row['message'] else ''}")
         if len(failed) > 5:
             print(f"  ... and {len(failed) - 5} more (see runs.csv)")
+        print(result.cost_summary())
     print(result.calibration().verdict)
     if args.plots is not None:
         try:

@@ -141,6 +141,7 @@ def run_plan(plan, *, out=None, workers=None, executor=None, checks=True, analyz
     if folder:
         folder.write_tables(result)
     bar = _bar(progress, plan.n_runs, done)
+    started = time.perf_counter()
     try:
         for r in _execute(tasks, n_local, executor, result, folder, bar):
             pass
@@ -155,6 +156,7 @@ def run_plan(plan, *, out=None, workers=None, executor=None, checks=True, analyz
     finally:
         if bar is not None:
             bar.close()
+    result.elapsed = time.perf_counter() - started
     if folder:
         folder.write_tables(result, force=True)
     if progress and verdict:
@@ -483,8 +485,11 @@ class SweepResult:
         self.folder = folder
         self.out = folder.out if folder else None
         self.seed = plan.seed
+        self.elapsed = None          # s, wall time of the sweep call (set when it ends)
+        self.ran = []                # indices of the runs this call ran, in finishing order
 
     def add(self, r):
+        self.ran.append(r["index"])
         self.results[r["index"]] = r
         self._cache = None
 
@@ -549,6 +554,17 @@ class SweepResult:
         """The calibration verdict of the checks' error bars (see :mod:`langsim.sweeps.report`)."""
         from .report import calibration
         return calibration(self.checks)
+
+    @property
+    def costs(self):
+        """Where each run's time went (pandas; see :func:`langsim.sweeps.report.cost_table`)."""
+        from .report import cost_table
+        return cost_table(self)
+
+    def cost_summary(self):
+        """Mean cost per run at each point, as a text table."""
+        from .report import cost_summary
+        return cost_summary(self, self.elapsed)
 
     def plot(self, directory, overwrite=False):
         """Figures per check quantity and of the z-scores into ``directory``; returns the paths."""

@@ -142,9 +142,11 @@ def _prepare(directory, overwrite):
 
 
 def plot_sweep(result, directory, overwrite=False):
-    """One figure per check key (measured with error bars against the first swept key, one
-    series per combination of the other keys, the prediction as a line) and the z-score
-    histogram against the standard normal. Returns the paths written."""
+    """One figure per check key: measured with error bars against the first swept key (a
+    series per combination of the other keys), the prediction as a line, the fitted ratio
+    measured/predicted (weighted mean, its error and chi^2 per point) in the legend, and
+    the residuals z under it; plus the z-score histogram against the standard normal.
+    Returns the paths written."""
     plt, directory = _prepare(directory, overwrite)
     checks = result.checks
     keys = result.plan.keys
@@ -158,28 +160,38 @@ def plot_sweep(result, directory, overwrite=False):
             continue
         x = x.astype(float) * scale_x
         unit, scale = DISPLAY_UNITS.get(rows["unit"].iloc[0], (rows["unit"].iloc[0], 1.0))
-        fig, ax = plt.subplots(figsize=(6.4, 4.4))
+        fig, (ax, res) = plt.subplots(2, 1, sharex=True, figsize=(6.4, 5.6),
+                                      gridspec_kw={"height_ratios": (3, 1)})
         groups = rows.groupby([rows[k].astype(str) for k in others], sort=False) if others else [("", rows)]
         n_in = 0
+        positive = True
         for label, g in groups:
             gx = np.array([_scalar(v, key) for v in g[first]], dtype=float) * scale_x
             m = g["measured"].to_numpy(float) * scale
             e = g["error"].to_numpy(float) * scale
             p = g["predicted"].to_numpy(float) * scale
-            n_in += int(np.sum(np.abs(g["z"].to_numpy(float)) < 2))
-            name = ", ".join(f"{k} = {v}" for k, v in zip(others, label if isinstance(label, tuple)
-                                                                   else (label,))) if others else ""
+            z = g["z"].to_numpy(float)
+            positive &= bool(np.all(m > 0) and np.all(p > 0))
+            n_in += int(np.sum(np.abs(z) < 2))
+            name = _series_name(others, label)
             bars = ax.errorbar(gx, m, yerr=np.where(np.isfinite(e), e, 0.0), fmt="o", ms=4, capsize=2,
-                               label=("measured" + (f" ({name})" if name else "")))
+                               label="measured" + (f" ({name})" if name else "") + _ratio_text(m, e, p, z))
+            colour = bars[0].get_color()
             order = np.argsort(gx)
-            ax.plot(gx[order], p[order], "-", color=bars[0].get_color(), lw=1.2,
-                    label="predicted" + (f" ({name})" if name else ""))
-        if np.all(x > 0) and x.max() / x.min() > 20:
+            ax.plot(gx[order], p[order], "-", color=colour, lw=1.2,
+                    label="theory" + (f" ({name})" if name else ""))
+            res.plot(gx, z, "o", ms=4, color=colour)
+        res.axhspan(-2, 2, color="0.9", zorder=0)
+        res.axhline(0.0, color="0.4", lw=0.8)
+        res.set_ylabel("z")
+        if np.all(x > 0) and x.max() / x.min() >= 4:
             ax.set_xscale("log")
+            if positive:
+                ax.set_yscale("log")
         quantity = rows["quantity"].iloc[0]
-        ax.set_title(f"{quantity}: measured vs predicted over {first}\n"
-                     f"{n_in} of {len(rows)} within 2 error bars", fontsize=10)
-        ax.set_xlabel(f"{first}" + (f" ({unit_x})" if unit_x else ""))
+        ax.set_title(f"{quantity}: measured vs theory over {first}\n"
+                     f"{n_in} of {len(rows)} within 2 error bars (grey band below)", fontsize=10)
+        res.set_xlabel(f"{first}" + (f" ({unit_x})" if unit_x else ""))
         ax.set_ylabel(f"{key}" + (f" ({unit})" if unit else ""))
         ax.legend(fontsize=7)
         fig.tight_layout()
@@ -189,6 +201,41 @@ def plot_sweep(result, directory, overwrite=False):
         paths.append(path)
     paths.append(_z_histogram(plt, checks, directory))
     return paths
+
+
+def _series_name(others, label):
+    """``temperature = 290 K, ...`` for a series of the other swept keys."""
+    if not others:
+        return ""
+    values = label if isinstance(label, tuple) else (label,)
+    parts = []
+    for k, v in zip(others, values):
+        unit, factor = _key_unit(k)
+        try:
+            shown = f"{float(v) * factor:.4g}"
+        except ValueError:
+            shown, unit = v, ""
+        parts.append(f"{k.split('.')[-1]} = {shown}" + (f" {unit}" if unit else ""))
+    return ", ".join(parts)
+
+
+def fitted_ratio(measured, error, predicted):
+    """Weighted mean of measured/predicted (weights 1/sigma^2, sigma = error/|predicted|)
+    and its standard error; (nan, nan) without a usable row."""
+    m, e, p = (np.asarray(a, dtype=float) for a in (measured, error, predicted))
+    ok = np.isfinite(m) & np.isfinite(e) & np.isfinite(p) & (e > 0) & (p != 0)
+    if not ok.any():
+        return math.nan, math.nan
+    r, w = m[ok] / p[ok], (p[ok] / e[ok]) ** 2
+    return float(np.sum(w * r) / np.sum(w)), float(1.0 / math.sqrt(np.sum(w)))
+
+
+def _ratio_text(m, e, p, z):
+    ratio, err = fitted_ratio(m, e, p)
+    z = z[np.isfinite(z)]
+    if not math.isfinite(ratio):
+        return ""
+    return f": measured/theory {ratio:.4f} ± {err:.4f}, χ²/n {np.mean(z ** 2):.2f} (n = {z.size})"
 
 
 def _z_histogram(plt, checks, directory):
@@ -218,3 +265,76 @@ def _z_histogram(plt, checks, directory):
     fig.savefig(path, dpi=110)
     plt.close(fig)
     return path
+
+
+# ------------------------------------------------------------------ cost
+
+#: Columns of the cost table (seconds unless named otherwise).
+COST_PARTS = ("setup", "compile", "stepping", "checks", "analyze")
+
+
+def cost_table(result):
+    """Per run: where its time went (s) and its speed. Columns: the swept keys,
+    ``replicate``, ``status``, ``wall_time`` (the whole task), ``setup`` (config,
+    sampler, file: the run less compile and stepping), ``compile`` (kernels loaded or
+    compiled), ``stepping``, ``checks``, ``analyze``, ``steps``, ``ns_per_particle_step``.
+    Runs finished before cost was recorded, or refused, have NaN."""
+    import pandas as pd
+    rows = []
+    for i, run in enumerate(result._runs):
+        r = result.results.get(i) or {}
+        c = r.get("cost") or {}
+        nan = math.nan
+        row = {**{k: str(v) if isinstance(v, list) else v for k, v in run["values"].items()},
+               "replicate": run["replicate"], "status": r.get("status", "not run"),
+               "wall_time": r.get("wall_time", nan)}
+        if c:
+            row.update(setup=max(0.0, c["run"] - c["compile"] - c["stepping"]), compile=c["compile"],
+                       stepping=c["stepping"], checks=c["checks"], analyze=c["analyze"], steps=c["steps"],
+                       ns_per_particle_step=(1e9 * c["stepping"] / c["particle_steps"]
+                                             if c["particle_steps"] else nan))
+        rows.append(row)
+    columns = (result.plan.keys + ["replicate", "status", "wall_time"] + list(COST_PARTS)
+               + ["steps", "ns_per_particle_step"])
+    return pd.DataFrame(rows, columns=columns, index=pd.Index(range(len(rows)), name="run"))
+
+
+def cost_summary(result, elapsed=None, max_rows=12):
+    """A text table: mean cost per run at each point (s), the whole sweep on the last line,
+    and how the sweep's wall time compares with the sum of its runs' times."""
+    table = cost_table(result)
+    keys = result.plan.keys
+    timed = table[np.isfinite(table["wall_time"].to_numpy(float))]
+    head = ["point", "runs", "s/run", "set-up", "compile", "stepping", "checks", "analyze",
+            "ns/p-step"]
+    lines = []
+
+    def line(label, g):
+        vals = [g[c].to_numpy(float) for c in ("wall_time",) + COST_PARTS]
+        ns = g["ns_per_particle_step"].to_numpy(float)
+        cells = [label, str(len(g))] + [_mean(v, "{:.3g}") for v in vals] + [_mean(ns, "{:.4g}")]
+        lines.append(cells)
+    if keys:
+        groups = list(timed.groupby([timed[k].astype(str) for k in keys], sort=False))
+        for label, g in groups[:max_rows]:
+            label = label if isinstance(label, tuple) else (label,)
+            line(", ".join(f"{k.split('.')[-1]}={v}" for k, v in zip(keys, label)), g)
+        if len(groups) > max_rows:
+            lines.append([f"... {len(groups) - max_rows} more points"] + [""] * (len(head) - 1))
+    line("all runs", timed)
+    widths = [max(len(str(r[j])) for r in [head] + lines) for j in range(len(head))]
+    fmt = lambda r: "  ".join(str(c).ljust(w) if j == 0 else str(c).rjust(w)  # noqa: E731
+                              for j, (c, w) in enumerate(zip(r, widths)))
+    out = ["cost per run (mean seconds; ns/p-step: stepping time per particle-step)", fmt(head)]
+    out += [fmt(r) for r in lines]
+    ran = table.loc[sorted(set(result.ran))]
+    total = float(np.nansum(ran["wall_time"].to_numpy(float)))
+    if elapsed and len(ran):
+        out.append(f"this call: {len(ran)} runs in {elapsed:.3g} s of wall time; their own times add "
+                   f"up to {total:.3g} s ({total / elapsed:.2f} runs at once on average)")
+    return "\n".join(out)
+
+
+def _mean(values, form):
+    values = values[np.isfinite(values)]
+    return form.format(float(values.mean())) if values.size else "-"

@@ -14,6 +14,7 @@ a local pool (:mod:`langsim.sweeps.pool`) over two pipes until the pipe closes,
 single-threaded, keeping its compiled kernels across runs, and ends when its
 parent process ends.
 """
+import math
 import numbers
 import os
 import sys
@@ -50,6 +51,7 @@ def _execute(task, result):
         if state is not None and state["state"] == trajectory.STATE_FAILED:
             result["message"] = state["status"].get("message", "ended early")
             return                              # a blow-up recorded before: it would repeat
+    t0 = time.perf_counter()
     try:
         traj = engine.run(task["config"], path, progress=False, threads=1, resume=path is not None)
     except ConfigError as exc:
@@ -59,17 +61,20 @@ def _execute(task, result):
         exc.trajectory.close()
         result.update(interrupted=True, message=exc.message, signum=exc.signum)
         return
+    result["cost"] = _cost(traj, time.perf_counter() - t0)
     try:
         if not traj.status.complete:
             result["message"] = traj.status.message
             return
         if task.get("checks", True):
+            t1 = time.perf_counter()
             try:
                 from ..checks import check
                 report = check(traj)
             except Exception as exc:
                 result["message"] = f"check: {type(exc).__name__}: {exc}"
                 return
+            result["cost"]["checks"] = time.perf_counter() - t1
             rows = report.to_dict()["rows"]
             result["checks"] = [{k: row[k] for k in CHECK_FIELDS} for row in rows]
             if not rows:
@@ -79,8 +84,10 @@ def _execute(task, result):
         if analyze is not None:
             import cloudpickle
             fn = cloudpickle.loads(analyze)
+            t1 = time.perf_counter()
             try:
                 values = fn(traj)
+                result["cost"]["analyze"] = time.perf_counter() - t1
             except Exception as exc:
                 last = traceback.extract_tb(exc.__traceback__)[-1]
                 result["message"] = (f"analyze raised {type(exc).__name__}: {exc} "
@@ -93,6 +100,18 @@ def _execute(task, result):
         result["status"] = "complete"
     finally:
         traj.close()
+
+
+def _cost(traj, seconds):
+    """Where the time of a run went (s), from the run's own statistics."""
+    stats = getattr(traj, "run_stats", None)
+    cost = {"run": seconds, "checks": 0.0, "analyze": 0.0, "steps": 0, "compile": 0.0,
+            "particle_steps": 0, "stepping": math.nan}
+    if stats is not None:
+        n = int(traj.config["particles"]["count"])
+        cost.update(steps=int(stats.steps), compile=float(stats.compile_time),
+                    particle_steps=int(stats.steps) * n, stepping=float(stats.wall_time))
+    return cost
 
 
 def _file_state(path):
