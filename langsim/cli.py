@@ -22,8 +22,8 @@ MAIN_HELP = """\
 Simulate Langevin dynamics of colloidal particles and mechanical oscillators,
 with known ground truth, and check the result against exact predictions.
 
-A run is described by a TOML config file in SI units (see configs/ for
-examples). Typical session:
+A run is described by a TOML config file in SI units ("langsim scenarios"
+lists the examples, "langsim scenarios NAME" writes one out). Typical session:
 
   langsim run configs/silica-trap.toml         # writes configs/silica-trap.h5
   langsim info configs/silica-trap.h5          # what is in the file
@@ -142,6 +142,8 @@ def build_parser():
     p.set_defaults(func=cmd_rate)
     from .sweeps.cli import add_parser as add_sweep
     add_sweep(sub, argparse.RawDescriptionHelpFormatter)
+    from .scenarios import add_parser as add_scenarios
+    add_scenarios(sub)
     return parser
 
 
