@@ -318,7 +318,7 @@ def cost_summary(result, elapsed=None, max_rows=12):
         groups = list(timed.groupby([timed[k].astype(str) for k in keys], sort=False))
         for label, g in groups[:max_rows]:
             label = label if isinstance(label, tuple) else (label,)
-            line(", ".join(f"{k.split('.')[-1]}={v}" for k, v in zip(keys, label)), g)
+            line(", ".join(f"{k.split('.')[-1]}={_short_number(v)}" for k, v in zip(keys, label)), g)
         if len(groups) > max_rows:
             lines.append([f"... {len(groups) - max_rows} more points"] + [""] * (len(head) - 1))
     line("all runs", timed)
@@ -333,6 +333,13 @@ def cost_summary(result, elapsed=None, max_rows=12):
         out.append(f"this call: {len(ran)} runs in {elapsed:.3g} s of wall time; their own times add "
                    f"up to {total:.3g} s ({total / elapsed:.2f} runs at once on average)")
     return "\n".join(out)
+
+
+def _short_number(text):
+    try:
+        return f"{float(text):.4g}"
+    except ValueError:
+        return text
 
 
 def _mean(values, form):

@@ -31,8 +31,12 @@ def execute(task):
     t0 = time.perf_counter()
     result = {"index": task["index"], "status": "failed", "message": "", "checks": [],
               "analyze": {}, "retry": False}
+    import warnings
+    from ..config import LangsimWarning
     try:
-        _execute(task, result)
+        with warnings.catch_warnings():        # config warnings: the sweep recorded them already
+            warnings.simplefilter("ignore", LangsimWarning)
+            _execute(task, result)
     except KeyboardInterrupt:
         raise
     except BaseException as exc:              # a bug or an outside cause: recorded, never fatal
