@@ -18,6 +18,7 @@ user terms directly.
   are kept.
 """
 import collections
+import functools
 import hashlib
 import inspect
 import os
@@ -53,7 +54,10 @@ _expression_modules = {}
 _function_modules = collections.OrderedDict()
 
 
+@functools.lru_cache(maxsize=1)
 def _kernel_source():
+    # the copied stages' text is fixed for the process: read it once (inspect.getsource
+    # tokenises whole files, about 3 ms a call: most of a tiny run's set-up otherwise)
     return "\n\n".join(f"{deco}\n{inspect.getsource(f)}" for f, deco in _COPIED)
 
 
