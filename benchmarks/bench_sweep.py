@@ -9,6 +9,8 @@ benchmarks/results/sweep.json. Measured in this same run:
   and where the time of one tiny run goes: config parsing, the equilibrium
   sampler (its inverse-CDF table built, and taken from the cache), one kernel
   dispatch (a call of no steps), the rest;
+* loop vs sweep: a plain Python loop of langsim.run and langsim.check over the same
+  configs, beside langsim.sweep with 1 and 2 workers;
 * scaling: a sweep of 16 equal points of about 1 s each (one particle, 1D,
   Euler-Maruyama, in memory, no checks), with 1 worker (this process), 2 local
   worker processes (the first sweep of the session, which starts the workers,
@@ -55,8 +57,7 @@ def per_call_ms(fn, n):
 
 
 def per_run_cost(n_runs):
-    from langsim.engine import Engine
-    from langsim.trajectory import MemorySink
+    from langsim.engine import Simulation
     langsim.run(TINY, progress=False, threads=1)              # kernels loaded
     run_ms = per_call_ms(lambda: langsim.run(TINY, progress=False, threads=1), n_runs)
     parse_ms = per_call_ms(lambda: _config.load(TINY), n_runs)
@@ -67,12 +68,9 @@ def per_run_cost(n_runs):
         initial.initial_positions(spec, seeding.initial_rng(spec.seed))
     sampler_cold = per_call_ms(cold, 50)
     sampler_warm = per_call_ms(lambda: initial.initial_positions(spec, seeding.initial_rng(spec.seed)), n_runs)
-    engine = Engine(spec, MemorySink(), threads=1)
-    x, v = np.zeros((1, 1)), np.zeros((1, 1))
-    empty = np.empty((0, 1, 1))
-    key = seeding.kernel_key(spec.seed)
-    dispatch = per_call_ms(lambda: engine._advance(x, v, 0, 0, key, engine.codes, engine.params, 1,
-                                                   empty, empty), n_runs)
+    sim = Simulation(spec, threads=1)
+    state = sim.state(np.zeros((1, 1)))
+    dispatch = per_call_ms(lambda: sim.advance(state, 0), n_runs)
     return {"run_ms": run_ms, "config_ms": parse_ms, "sampler_cold_ms": sampler_cold,
             "sampler_cached_ms": sampler_warm, "dispatch_ms": dispatch}
 
@@ -88,7 +86,7 @@ def scaling(n_points, steps):
         result = langsim.sweep(base, axes, checks=False, progress=False, **kw)
         assert (result.runs["status"] == "complete").all(), result.runs["message"]
         return time.perf_counter() - t, result.runs
-    langsim.run({**base, "dynamics": {"dt": 1e-4, "steps": 1000}}, progress=False, threads=1)
+    langsim.sweep(base, {"potential.0.stiffness": [1e-6]}, workers=1, checks=False, progress=False)
     out = {}
     out["one"], runs_one = timed(workers=1)
     out["local_first"], runs_local = timed(workers=2)
@@ -108,14 +106,39 @@ def scaling(n_points, steps):
     return out
 
 
+def loop_vs_sweep(n_runs, steps):
+    """What a user would write (a loop of langsim.run and langsim.check over configs built
+    by hand) beside langsim.sweep of the same runs, with 1 and 2 workers, in memory."""
+    base = {"seed": 11, "particles": {"count": 1, "dimensions": 1, "radius": 0.5e-6},
+            "potential": [{"type": "harmonic", "stiffness": 1e-6}],
+            "dynamics": {"dt": 1e-4, "steps": steps}, "output": {"every": 4}}
+    stiffness = np.linspace(1e-6, 4e-6, n_runs)
+    langsim.check(langsim.run(base, progress=False, threads=1))       # imports and kernels loaded
+    langsim.sweep(base, {"potential.0.stiffness": stiffness[:1]}, workers=1, progress=False)
+    t = time.perf_counter()
+    for k in stiffness:
+        cfg = {**base, "potential": [{"type": "harmonic", "stiffness": float(k)}]}
+        langsim.check(langsim.run(cfg, progress=False, threads=1))
+    out = {"loop": time.perf_counter() - t}
+    for workers in (1, 2):
+        t = time.perf_counter()
+        langsim.sweep(base, {"potential.0.stiffness": stiffness}, workers=workers, progress=False)
+        out[f"sweep_{workers}"] = time.perf_counter() - t
+    from langsim.sweeps.pool import discard_shared
+    discard_shared()
+    return out
+
+
 def main():
+    import warnings
+    warnings.simplefilter("ignore")          # config warnings of the benchmark's own runs
     ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
     ap.add_argument("--quick", action="store_true", help="fewer and shorter runs")
     args = ap.parse_args()
     n_runs = 50 if args.quick else 200
     floor = numpy_normals_ms()
     cost = per_run_cost(n_runs)
-    rest = cost["run_ms"] - cost["config_ms"] - cost["sampler_cached_ms"] - 2 * cost["dispatch_ms"]
+    rest = cost["run_ms"] - cost["config_ms"] - cost["sampler_cached_ms"] - cost["dispatch_ms"]
     print(f"per-run cost, {n_runs} tiny runs (1 particle, 100 steps) in one process")
     print(f"  numpy: 1e5 normal variates                 {floor:8.2f} ms   (baseline)")
     print(f"  langsim.run of a tiny config               {cost['run_ms']:8.2f} ms   "
@@ -123,8 +146,16 @@ def main():
     print(f"    config parsing and validation            {cost['config_ms']:8.2f} ms")
     print(f"    equilibrium sampler, table built          {cost['sampler_cold_ms']:8.2f} ms")
     print(f"    equilibrium sampler, table cached         {cost['sampler_cached_ms']:8.2f} ms")
-    print(f"    one kernel dispatch (x2 per run)          {cost['dispatch_ms']:8.2f} ms")
+    print(f"    one burst of no steps (kernel dispatch)   {cost['dispatch_ms']:8.2f} ms")
     print(f"    the rest (engine, sink, seeds)            {rest:8.2f} ms")
+    n_loop = 8 if args.quick else 24
+    lv = loop_vs_sweep(n_loop, 20_000)
+    print(f"\nloop vs sweep: {n_loop} runs (1 particle, 20,000 steps, checked), in memory")
+    print(f"  plain loop of langsim.run + langsim.check {lv['loop']:8.2f} s   (baseline)")
+    print(f"  langsim.sweep, workers=1                  {lv['sweep_1']:8.2f} s   "
+          f"{lv['loop'] / lv['sweep_1']:.2f} x")
+    print(f"  langsim.sweep, workers=2 (starts them)    {lv['sweep_2']:8.2f} s   "
+          f"{lv['loop'] / lv['sweep_2']:.2f} x")
     n_points = 4 if args.quick else 16
     steps = 600_000 if args.quick else 6_000_000
     sc = scaling(n_points, steps)
@@ -143,7 +174,7 @@ def main():
     os.makedirs(os.path.join(HERE, "results"), exist_ok=True)
     path = os.path.join(HERE, "results", "sweep.json")
     with open(path, "w") as fh:
-        json.dump({"numpy_1e5_normals_ms": floor, "per_run": cost, "scaling": sc,
+        json.dump({"numpy_1e5_normals_ms": floor, "per_run": cost, "loop_vs_sweep": lv, "scaling": sc,
                    "quick": args.quick, "cpu_count": os.cpu_count(),
                    "load_average": os.getloadavg(), "python": sys.version.split()[0]}, fh, indent=1)
     print(f"\nwrote {path}")
