@@ -6,6 +6,7 @@ files in ``configs/sweeps/``); an installed package carries them as data files i
 """
 import os
 import sys
+import tomllib
 import sysconfig
 
 from .validation import ConfigError
@@ -67,10 +68,18 @@ def summary(path):
     return ""
 
 
+def command(name):
+    """The langsim command that runs scenario ``name``: sweep, rate (an [escape] table) or run."""
+    path = path_of(name)
+    if os.path.dirname(path).endswith("sweeps"):
+        return "sweep"
+    with open(path, "rb") as fh:
+        return "rate" if "escape" in tomllib.load(fh) else "run"
+
+
 def listing():
-    """The scenarios as text lines: name, kind (run or sweep), first comment line."""
-    rows = [(n, "sweep" if n.startswith("sweeps/") else "run",
-             summary(os.path.join(folder(), n + ".toml"))) for n in names()]
+    """The scenarios as text lines: name, the command that runs it, first comment line."""
+    rows = [(n, command(n), summary(os.path.join(folder(), n + ".toml"))) for n in names()]
     width = max(len(n) for n, _, _ in rows)
     return [f"{n.ljust(width)}  {kind.ljust(5)}  {text}" for n, kind, text in rows]
 
@@ -119,6 +128,5 @@ def cmd_scenarios(args):
         print("\nwrite one out: langsim scenarios NAME [-o PATH]", file=sys.stderr)
         return 0
     path = write(args.name, args.output, args.overwrite)
-    kind = "sweep" if os.path.dirname(path_of(args.name)).endswith("sweeps") else "run"
-    print(f"wrote {path}; run it with: langsim {kind} {path}", file=sys.stderr)
+    print(f"wrote {path}; run it with: langsim {command(args.name)} {path}", file=sys.stderr)
     return 0

@@ -30,6 +30,10 @@ def test_listing_names_every_file():
     listed = {line.split()[0] for line in out.splitlines() if line.strip()}
     on_disk = {p.stem for p in ROOT.glob("*.toml")} | {f"sweeps/{p.stem}" for p in SWEEPS}
     assert listed == on_disk and len(SWEEPS) >= 2
+    # each is listed with the command that runs it: an [escape] table is a rate, not a run
+    commands = {line.split()[0]: line.split()[1] for line in out.splitlines() if line.strip()}
+    assert commands["trap-hold-time"] == "rate" and commands["silica-trap"] == "run"
+    assert commands["sweeps/time-step"] == "sweep"
 
 
 def test_writing_one_out_and_never_over_a_file(tmp_path):
