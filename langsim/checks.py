@@ -427,8 +427,14 @@ def check(traj, z_threshold=4.5, min_events=20, transient_factor=10.0):
                             f"only {cap} frames discarded")
         start = cap
     report.start_frame, report.discarded_time = start, start * s.frame_dt
-    report.notes.append(f"transient: {transient_factor:g} x slowest relaxation time {tau:.3g} s "
-                        f"minus burn-in {s.burn_in:.3g} s")
+    unknown = sorted({s.axis_kind(a) for a in range(s.d) if s.relaxation_time(a) == 0.0}
+                     - {"free", "drift"})
+    if tau == 0.0 and unknown:
+        report.notes.append(f"transient: no relaxation time is known for {', '.join(unknown)} terms; "
+                            f"only the burn-in of {s.burn_in:.3g} s is relied on")
+    else:
+        report.notes.append(f"transient: {transient_factor:g} x slowest relaxation time {tau:.3g} s "
+                            f"minus burn-in {s.burn_in:.3g} s")
     kinds = [s.axis_kind(a) for a in range(s.d)]
     for a, k in enumerate(kinds):
         if k == "moving-trap":

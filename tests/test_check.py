@@ -248,6 +248,7 @@ def test_gaussian_well_escape_rows():
     assert rep.passed, rep.format_table()
     assert rows["escapes.radial"].status == "pass" and 50 < rows["escapes.radial"].predicted < 250
     assert rows["escape_rate.radial"].status == "info"
+    assert any("no relaxation time is known for gaussian-well" in n for n in rep.notes), rep.notes
     pos = np.asarray(traj.positions)
     bad = copy.deepcopy(traj.config)
     bad["potential"][0]["depth"] *= 1.4
